@@ -1,0 +1,16 @@
+"""benchsuite: convex-optimization sanity benchmarks for first-order update rules.
+
+The package is organised one module per concept; data flows one way::
+
+    catalogue files -> problem -> certified optimum -> case run -> results table
+                    -> gate / compare / report
+
+Heavy dependencies (cvxpy, torch, matplotlib) are imported only where used, so
+``import benchsuite`` and ``benchsuite --help`` stay fast.
+"""
+
+from __future__ import annotations
+
+__version__ = "0.1.0"
+
+__all__ = ["__version__"]

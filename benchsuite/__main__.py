@@ -1,0 +1,5 @@
+import sys
+
+from benchsuite.cli import main
+
+sys.exit(main())
