@@ -1,0 +1,425 @@
+"""The catalogue: named problem instances read from TOML files.
+
+Each catalogue file holds ``[[instance]]`` tables (see DEVELOPERS.md)::
+
+    [[instance]]
+    name = "quad-diag-kappa100-d50"   # required, unique over all files
+    family = "quadratic"              # required: built-in short name or module:Class
+    targets = [1e-2, 1e-4, 1e-6]      # required: strictly decreasing, all > 0
+    budget = 2000                     # required: iteration budget, integer > 0
+    tier = "small"                    # small | medium | large (default small)
+    measure = "subopt"                # subopt | dist | gradnorm (default subopt)
+    x_tol = 1e-3                      # gate: relative final distance (default 1e-3)
+    [instance.params]                 # keyword arguments of the family constructor
+    d = 50
+
+The built-in catalogue is the ``problems/`` folder at the top of the
+repository; more files or folders come from the ``paths`` argument and from
+the environment variable ``BENCHSUITE_CATALOGUE`` (``os.pathsep``-separated).
+Everything is validated here, once: a mistake becomes a one-line
+:class:`~benchsuite.errors.UserError` naming the file, the instance and the
+field. Problems are built lazily (:meth:`Instance.build`); loading a catalogue
+only resolves the family class and checks the parameter names against its
+constructor's signature.
+"""
+
+from __future__ import annotations
+
+import difflib
+import fnmatch
+import hashlib
+import inspect
+import json
+import math
+import os
+import tomllib
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from benchsuite.errors import UserError
+
+if TYPE_CHECKING:
+    from benchsuite.problem import Problem
+
+__all__ = [
+    "ENV_VAR",
+    "MEASURES",
+    "TIERS",
+    "Instance",
+    "builtin_dir",
+    "instance_from_strd",
+    "load_catalogue",
+    "select",
+]
+
+TIERS = ("small", "medium", "large")
+MEASURES = ("subopt", "dist", "gradnorm")
+ENV_VAR = "BENCHSUITE_CATALOGUE"
+
+_REQUIRED = ("name", "family", "targets", "budget")
+_OPTIONAL = ("tier", "measure", "x_tol", "params")
+#: targets/budget of a StRD file given by path: the measure is the gradient
+#: norm relative to its value at the start (residual sums of squares differ by
+#: orders of magnitude between files, so an absolute target would not carry)
+_STRD_TARGETS = (1e-2, 1e-4, 1e-6)
+_STRD_BUDGET = 20000
+
+
+def _freeze(value: Any) -> Any:
+    """TOML value -> hashable value: lists become tuples (recursively)."""
+    if isinstance(value, list):
+        return tuple(_freeze(v) for v in value)
+    return value
+
+
+def _thaw(value: Any) -> Any:
+    """Inverse of :func:`_freeze` for passing parameters to a constructor."""
+    if isinstance(value, tuple):
+        return [_thaw(v) for v in value]
+    return value
+
+
+def _canonical(obj: Any) -> str:
+    """Canonical JSON: sorted keys, no spaces, floats by repr (exact round trip)."""
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+@dataclass(frozen=True)
+class Instance:
+    """One named catalogue entry: a family, its parameters and the run settings."""
+
+    name: str
+    family: str
+    params: tuple[tuple[str, Any], ...]
+    tier: str
+    targets: tuple[float, ...]
+    budget: int
+    measure: str = "subopt"
+    x_tol: float = 1e-3
+    source: str = ""
+
+    def params_dict(self) -> dict[str, Any]:
+        """The parameters as keyword arguments (tuples back to lists)."""
+        return {k: _thaw(v) for k, v in self.params}
+
+    def family_class(self) -> type:
+        """The :class:`~benchsuite.problem.Problem` subclass of this instance."""
+        from benchsuite.families import resolve_family
+
+        try:
+            return resolve_family(self.family)
+        except UserError as exc:
+            raise UserError(f"{self._where('family')}: {exc}") from None
+
+    def build(self, dtype: str | None = None) -> Problem:
+        """Construct the problem: ``family(**params)`` (plus ``dtype`` when given).
+
+        A constructor's ``TypeError`` for an unknown keyword names the parameter
+        and lists the accepted ones; a ``ValueError`` (or other ``TypeError``)
+        is reported with the file and instance in front.
+        """
+        cls = self.family_class()
+        kwargs = self.params_dict()
+        if dtype is not None:
+            kwargs["dtype"] = dtype
+        unknown = _unknown_params(cls, kwargs)
+        if unknown:
+            raise UserError(_unknown_message(self._where("params"), self.family, cls, unknown))
+        try:
+            return cls(**kwargs)
+        except (ValueError, TypeError) as exc:
+            raise UserError(f"{self._where('params')}: {exc}") from None
+
+    def problem_hash(self) -> str:
+        """sha256 of the canonical JSON of ``(family, params)``: the objective's identity."""
+        payload = {"family": self.family, "params": dict(self.params)}
+        return hashlib.sha256(_canonical(payload).encode()).hexdigest()
+
+    def definition_hash(self) -> str:
+        """sha256 of everything that defines a benchmark case except name, source and tier."""
+        payload = {
+            "family": self.family,
+            "params": dict(self.params),
+            "targets": list(self.targets),
+            "budget": self.budget,
+            "measure": self.measure,
+            "x_tol": self.x_tol,
+        }
+        return hashlib.sha256(_canonical(payload).encode()).hexdigest()
+
+    def _where(self, field: str) -> str:
+        return f"{self.source or '<instance>'}: [{self.name}].{field}"
+
+
+# -- parameter names against the constructor -------------------------------
+def _accepted(cls: type) -> tuple[list[str], bool]:
+    """Keyword names the constructor accepts, and whether it takes ``**kwargs``."""
+    try:
+        sig = inspect.signature(cls)
+    except (TypeError, ValueError):  # pragma: no cover - builtins without signature
+        return [], True
+    names, var_kw = [], False
+    for p in sig.parameters.values():
+        if p.kind is p.VAR_KEYWORD:
+            var_kw = True
+        elif p.kind in (p.POSITIONAL_OR_KEYWORD, p.KEYWORD_ONLY):
+            names.append(p.name)
+    return names, var_kw
+
+
+def _unknown_params(cls: type, kwargs: Mapping[str, Any]) -> list[str]:
+    names, var_kw = _accepted(cls)
+    if var_kw:
+        return []
+    return [k for k in kwargs if k not in names]
+
+
+def _unknown_message(where: str, family: str, cls: type, unknown: list[str]) -> str:
+    names, _ = _accepted(cls)
+    close = difflib.get_close_matches(unknown[0], names, n=1)
+    hint = f" (did you mean {close[0]!r}?)" if close else ""
+    return (
+        f"{where}: family {family!r} has no parameter {unknown[0]!r}{hint}; "
+        f"accepted: {', '.join(names) or '(none)'}"
+    )
+
+
+# -- reading files -----------------------------------------------------------
+def builtin_dir() -> Path:
+    """The built-in catalogue folder: ``problems/`` next to the package."""
+    import benchsuite
+
+    return Path(benchsuite.__file__).resolve().parents[1] / "problems"
+
+
+def _files(path: Path) -> list[Path]:
+    if path.is_dir():
+        return sorted(path.glob("*.toml"))
+    if path.is_file():
+        return [path]
+    raise UserError(f"{path}: catalogue file or folder not found")
+
+
+def _display(path: Path) -> str:
+    """A path as shown in messages: relative to the current folder when inside it."""
+    try:
+        return str(path.resolve().relative_to(Path.cwd().resolve()))
+    except ValueError:
+        return str(path)
+
+
+def _type_name(value: Any) -> str:
+    return {bool: "boolean", int: "integer", float: "float", str: "string", list: "array", dict: "table"}.get(
+        type(value), type(value).__name__
+    )
+
+
+def _check_param_value(where: str, value: Any) -> None:
+    if isinstance(value, dict):
+        raise UserError(f"{where}: nested tables are not allowed in params (use a flat key)")
+    if isinstance(value, list):
+        for v in value:
+            _check_param_value(where, v)
+    elif not isinstance(value, (bool, int, float, str)):
+        raise UserError(f"{where}: unsupported value type {_type_name(value)} (use numbers, strings, booleans, arrays)")
+    elif isinstance(value, float) and not math.isfinite(value):
+        raise UserError(f"{where}: value must be finite, got {value!r}")
+
+
+def _parse_entry(src: str, index: int, entry: Any) -> Instance:
+    label = f"{src}: instance #{index + 1}"
+    if not isinstance(entry, dict):
+        raise UserError(f"{label}: expected a table ([[instance]]), got {_type_name(entry)}")
+    name = entry.get("name")
+    if isinstance(name, str) and name:
+        label = f"{src}: [{name}]"
+    for key in _REQUIRED:
+        if key not in entry:
+            raise UserError(f"{label}: missing required field {key!r}")
+    for key in entry:
+        if key not in _REQUIRED + _OPTIONAL:
+            raise UserError(f"{label}.{key}: unknown field (allowed: {', '.join(_REQUIRED + _OPTIONAL)})")
+
+    def want(key: str, types: tuple[type, ...], what: str) -> Any:
+        value = entry[key]
+        if not isinstance(value, types) or (isinstance(value, bool) and bool not in types):
+            raise UserError(f"{label}.{key}: expected {what}, got {_type_name(value)} {value!r}")
+        return value
+
+    name = want("name", (str,), "a string")
+    if not name.strip() or any(c.isspace() for c in name) or "," in name:
+        raise UserError(f"{label}.name: {name!r} must be non-empty without spaces or commas")
+    family = want("family", (str,), "a string")
+    targets = want("targets", (list,), "an array of numbers")
+    if not targets:
+        raise UserError(f"{label}.targets: must not be empty")
+    for t in targets:
+        if isinstance(t, bool) or not isinstance(t, (int, float)) or not math.isfinite(t) or t <= 0:
+            raise UserError(f"{label}.targets: every target must be a finite number > 0, got {t!r}")
+    if any(b >= a for a, b in zip(targets, targets[1:])):
+        raise UserError(f"{label}.targets: must be strictly decreasing, got {targets!r}")
+    budget = want("budget", (int,), "an integer")
+    if budget <= 0:
+        raise UserError(f"{label}.budget: must be > 0, got {budget!r}")
+    tier = want("tier", (str,), "a string") if "tier" in entry else "small"
+    if tier not in TIERS:
+        raise UserError(f"{label}.tier: unknown tier {tier!r} (one of {', '.join(TIERS)})")
+    measure = want("measure", (str,), "a string") if "measure" in entry else "subopt"
+    if measure not in MEASURES:
+        raise UserError(f"{label}.measure: unknown measure {measure!r} (one of {', '.join(MEASURES)})")
+    x_tol = float(want("x_tol", (int, float), "a number")) if "x_tol" in entry else 1e-3
+    if not (math.isfinite(x_tol) and x_tol > 0):
+        raise UserError(f"{label}.x_tol: must be a finite number > 0, got {x_tol!r}")
+    params = want("params", (dict,), "a table ([instance.params])") if "params" in entry else {}
+    for k, v in params.items():
+        _check_param_value(f"{label}.params.{k}", v)
+
+    inst = Instance(
+        name=name,
+        family=family,
+        params=tuple(sorted((k, _freeze(v)) for k, v in params.items())),
+        tier=tier,
+        targets=tuple(float(t) for t in targets),
+        budget=int(budget),
+        measure=measure,
+        x_tol=x_tol,
+        source=src,
+    )
+    cls = inst.family_class()
+    unknown = _unknown_params(cls, params)
+    if unknown:
+        raise UserError(_unknown_message(f"{label}.params", family, cls, unknown))
+    return inst
+
+
+def _read_file(path: Path) -> list[Instance]:
+    src = _display(path)
+    try:
+        with path.open("rb") as fh:
+            doc = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:  # the message carries "(at line L, column C)"
+        raise UserError(f"{src}: malformed TOML: {exc}") from None
+    except OSError as exc:
+        raise UserError(f"{src}: cannot read: {exc.strerror}") from None
+    for key in doc:
+        if key != "instance":
+            raise UserError(f"{src}: unknown top-level key {key!r} (entries are [[instance]] tables)")
+    entries = doc.get("instance", [])
+    if not isinstance(entries, list):
+        raise UserError(f"{src}: 'instance' must be an array of tables ([[instance]])")
+    return [_parse_entry(src, i, e) for i, e in enumerate(entries)]
+
+
+def load_catalogue(paths: Sequence[str | Path] | None = None) -> dict[str, Instance]:
+    """All instances by name, in file order.
+
+    Reads the built-in ``problems/*.toml``, then the files or folders in
+    ``BENCHSUITE_CATALOGUE``, then ``paths``. A name defined twice is an error
+    naming both files.
+    """
+    roots: list[Path] = []
+    builtin = builtin_dir()
+    if builtin.is_dir():
+        roots.append(builtin)
+    env = os.environ.get(ENV_VAR, "")
+    roots += [Path(p) for p in env.split(os.pathsep) if p.strip()]
+    roots += [Path(p) for p in (paths or ())]
+    seen_files: set[Path] = set()
+    out: dict[str, Instance] = {}
+    for root in roots:
+        for f in _files(root):
+            key = f.resolve()
+            if key in seen_files:
+                continue
+            seen_files.add(key)
+            for inst in _read_file(f):
+                if inst.name in out:
+                    raise UserError(
+                        f"{inst.source}: [{inst.name}].name: duplicate instance name, "
+                        f"already defined in {out[inst.name].source}"
+                    )
+                out[inst.name] = inst
+    return out
+
+
+# -- selection ---------------------------------------------------------------
+def _is_glob(text: str) -> bool:
+    return any(c in text for c in "*?[")
+
+
+def _looks_like_path(text: str) -> bool:
+    return text.lower().endswith(".dat") or os.sep in text or (os.altsep is not None and os.altsep in text)
+
+
+def select(
+    catalogue: Mapping[str, Instance], selector: str | None = None, tier: str | None = "small"
+) -> list[Instance]:
+    """Instances chosen by a selector.
+
+    ``selector`` is a comma-separated list of instance names, ``fnmatch``
+    globs (``"lsq-*,rosenbrock-2d"``) or paths to NIST StRD ``.dat`` files.
+    Without a selector every instance of ``tier`` is chosen (``tier=None``:
+    all tiers). Globs are restricted to ``tier`` as well; an exact name or a
+    path is taken whatever its tier. Order follows the selector, without
+    repeats. An unknown name raises :class:`UserError` listing close matches.
+    """
+    if tier is not None and tier not in TIERS:
+        raise UserError(f"--tier: unknown tier {tier!r} (one of {', '.join(TIERS)})")
+
+    def in_tier(inst: Instance) -> bool:
+        return tier is None or inst.tier == tier
+
+    if selector is None or not selector.strip():
+        return [i for i in catalogue.values() if in_tier(i)]
+    chosen: dict[str, Instance] = {}
+    for part in (p.strip() for p in selector.split(",")):
+        if not part:
+            continue
+        if part in catalogue:
+            chosen.setdefault(part, catalogue[part])
+        elif _is_glob(part):
+            hits = [i for n, i in catalogue.items() if fnmatch.fnmatchcase(n, part)]
+            if not hits:
+                raise UserError(f"--problems: {part!r} matches no instance")
+            hits_tier = [i for i in hits if in_tier(i)]
+            if not hits_tier:
+                raise UserError(f"--problems: {part!r} matches no instance of tier {tier!r} ({len(hits)} in other tiers)")
+            for i in hits_tier:
+                chosen.setdefault(i.name, i)
+        elif Path(part).is_file() or _looks_like_path(part):
+            inst = instance_from_strd(part)
+            chosen.setdefault(inst.name, inst)
+        else:
+            close = difflib.get_close_matches(part, list(catalogue), n=5, cutoff=0.5)
+            hint = f"; close matches: {', '.join(close)}" if close else ""
+            raise UserError(f"--problems: unknown instance {part!r}{hint}")
+    return list(chosen.values())
+
+
+def instance_from_strd(path: str | Path, start: int = 1) -> Instance:
+    """An instance for any NIST StRD nonlinear regression file given by path.
+
+    Family ``"nist_strd"`` with ``file = <absolute path>`` and ``start`` (1 or
+    2: the file's certified starting points). The file is read here, so a
+    missing file, a missing certified block or an unparseable model is
+    reported at once. Measure: gradient norm relative to the start.
+    """
+    p = Path(path)
+    if not p.is_file():
+        raise UserError(f"{path}: StRD file not found")
+    if start not in (1, 2):
+        raise UserError(f"{path}: start must be 1 or 2, got {start!r}")
+    inst = Instance(
+        name=f"{p.stem}-start{start}",
+        family="nist_strd",
+        params=(("file", str(p.resolve())), ("start", int(start))),
+        tier="small",
+        targets=_STRD_TARGETS,
+        budget=_STRD_BUDGET,
+        measure="gradnorm",
+        source=str(path),
+    )
+    inst.build()  # reads and parses the file: bad files fail here, with their location
+    return inst
