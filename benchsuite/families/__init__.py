@@ -17,6 +17,8 @@ from benchsuite.errors import UserError
 #: short family name -> "module:ClassName"
 BUILTIN: dict[str, str] = {
     "quadratic": "benchsuite.families.quadratic:Quadratic",
+    "least_squares": "benchsuite.families.least_squares:LeastSquares",
+    "ridge": "benchsuite.families.least_squares:Ridge",
 }
 
 
