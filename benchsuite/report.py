@@ -1,0 +1,187 @@
+"""Reports of the gate and of the speed-up comparison.
+
+Four forms for each: a plain-text terminal table, Markdown for a pull-request
+comment (verdict first, failing cases next, everything else folded in a
+``<details>`` block), JUnit XML for CI systems (gate only: one ``<testcase>``
+per gate case, a ``<failure>`` carrying the reasons), and JSON.
+All functions here are pure: they take report objects and return text.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import xml.etree.ElementTree as ET
+from collections.abc import Sequence
+from typing import Any
+
+from benchsuite.gate import CaseVerdict, GateReport, TargetCheck
+
+__all__ = [
+    "table",
+    "gate_table",
+    "gate_markdown",
+    "gate_junit",
+    "gate_json",
+]
+
+_MARK = {"pass": "pass", "improved": "improved", "fail": "FAIL"}
+
+
+def table(headers: Sequence[str], rows: Sequence[Sequence[Any]]) -> str:
+    """A left-aligned plain-text table with a rule under the header."""
+    cells = [[str(h) for h in headers]] + [[str(c) for c in r] for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
+    lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in cells]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def _it(v: float) -> str:
+    if math.isinf(v):
+        return "-"
+    return f"{v:.0f}" if float(v).is_integer() else f"{v:.1f}"
+
+
+def _targets_cell(checks: Sequence[TargetCheck]) -> str:
+    """e.g. ``1e-02 12/12  1e-06 130/96!``; ``!`` marks the offending target."""
+    parts = []
+    for t in checks:
+        flag = {"slower": "!", "lost": "!", "faster": "+", "gained": "+"}.get(t.outcome, "")
+        parts.append(f"{t.target:.0e} {_it(t.baseline)}/{_it(t.candidate)}{flag}")
+    return "  ".join(parts)
+
+
+def _why(v: CaseVerdict) -> str:
+    return "; ".join(v.reasons or v.notes)
+
+
+# ------------------------------------------------------------------- gate
+def gate_table(report: GateReport) -> str:
+    """Terminal table: one row per case, then the overall verdict."""
+    rows = [
+        (_MARK[v.verdict], v.instance, v.candidate_status, _targets_cell(v.targets), _why(v))
+        for v in sorted(report.verdicts, key=lambda v: (v.verdict != "fail", v.key))
+    ]
+    head = (
+        f"gate: {report.candidate_rule} against {report.baseline} (recorded with {report.baseline_rule})\n"
+        f"{report.config.describe()}\n"
+        "iterations per target: baseline/candidate (! regression, + improvement)\n"
+    )
+    return head + table(("verdict", "instance", "status", "iterations to target", "why"), rows) + "\n" + report.summary()
+
+
+def _md_escape(text: str) -> str:
+    return text.replace("|", "\\|").replace("\n", " ")
+
+
+def _md_rows(verdicts: Sequence[CaseVerdict]) -> list[str]:
+    lines = ["| verdict | case | iterations (baseline/candidate) | why |", "|---|---|---|---|"]
+    for v in verdicts:
+        lines.append(
+            f"| {_MARK[v.verdict]} | `{_md_escape(v.key)}` | {_md_escape(_targets_cell(v.targets))} | {_md_escape(_why(v))} |"
+        )
+    return lines
+
+
+def gate_markdown(report: GateReport) -> str:
+    """A pull-request comment: verdict first, failing cases, the rest folded."""
+    icon = "✅" if report.passed else "❌"
+    out = [f"## {icon} benchsuite gate: {report.summary()}", ""]
+    out.append(
+        f"Candidate `{_md_escape(report.candidate_rule)}` against baseline `{_md_escape(report.baseline)}` "
+        f"(recorded with `{_md_escape(report.baseline_rule)}`); {_md_escape(report.config.describe())}."
+    )
+    out.append("")
+    if report.failures:
+        out.append("### Failing cases")
+        out.append("")
+        out += _md_rows(report.failures)
+        out.append("")
+    if report.improvements:
+        out.append("Some cases improved: re-record the baseline (`benchsuite baseline ... --force`) to lock the gain in.")
+        out.append("")
+    rest = [v for v in report.verdicts if not v.failed]
+    if rest:
+        out.append(f"<details><summary>{len(rest)} passing case(s)</summary>")
+        out.append("")
+        out += _md_rows(rest)
+        out.append("")
+        out.append("</details>")
+    return "\n".join(out) + "\n"
+
+
+def gate_junit(report: GateReport) -> str:
+    """JUnit XML: one testsuite, one testcase per gate case."""
+    suite = ET.Element(
+        "testsuite",
+        name="benchsuite.gate",
+        tests=str(len(report.verdicts)),
+        failures=str(len(report.failures)),
+        errors="0",
+        skipped="0",
+    )
+    props = ET.SubElement(suite, "properties")
+    for k, v in (
+        ("baseline", report.baseline),
+        ("baseline_rule", report.baseline_rule),
+        ("candidate_rule", report.candidate_rule),
+        ("config", report.config.describe()),
+    ):
+        ET.SubElement(props, "property", name=k, value=v)
+    for v in report.verdicts:
+        tc = ET.SubElement(suite, "testcase", classname=f"benchsuite.gate.{v.instance}", name=v.key)
+        detail = _targets_cell(v.targets)
+        if v.failed:
+            fail = ET.SubElement(tc, "failure", message="; ".join(v.reasons), type="GateFailure")
+            fail.text = "\n".join(v.reasons) + f"\niterations per target (baseline/candidate): {detail}\n"
+        else:
+            out = ET.SubElement(tc, "system-out")
+            out.text = "\n".join([f"{v.verdict}: {detail}", *v.notes]) + "\n"
+    ET.indent(suite)
+    return '<?xml version="1.0" encoding="utf-8"?>\n' + ET.tostring(suite, encoding="unicode") + "\n"
+
+
+def _num(v: float) -> float | None:
+    return None if math.isinf(v) or math.isnan(v) else v
+
+
+def gate_json(report: GateReport) -> str:
+    doc = {
+        "passed": report.passed,
+        "summary": report.summary(),
+        "baseline": report.baseline,
+        "baseline_rule": report.baseline_rule,
+        "candidate_rule": report.candidate_rule,
+        "config": {
+            "slack_iters": report.config.slack_iters,
+            "slack_rel": report.config.slack_rel,
+            "noise_factor": report.config.noise_factor,
+            "exact": report.config.exact,
+            "exact_rtol": report.config.exact_rtol,
+            "exact_atol": report.config.exact_atol,
+        },
+        "cases": [
+            {
+                "key": v.key,
+                "instance": v.instance,
+                "verdict": v.verdict,
+                "reasons": list(v.reasons),
+                "notes": list(v.notes),
+                "baseline_status": v.baseline_status,
+                "candidate_status": v.candidate_status,
+                "targets": [
+                    {
+                        "target": t.target,
+                        "baseline_iters": _num(t.baseline),
+                        "candidate_iters": _num(t.candidate),
+                        "allowance": t.allowance,
+                        "outcome": t.outcome,
+                    }
+                    for t in v.targets
+                ],
+            }
+            for v in report.verdicts
+        ],
+    }
+    return json.dumps(doc, indent=2, sort_keys=True) + "\n"

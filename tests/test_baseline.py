@@ -1,0 +1,150 @@
+"""Baseline files: round trip, atomic refusal to overwrite, validation messages."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from benchsuite.baseline import (
+    SCHEMA,
+    Baseline,
+    CaseRecord,
+    SeedRecord,
+    dumps,
+    load_baseline,
+    parse_baseline,
+    write_baseline,
+)
+from benchsuite.errors import UserError
+
+
+def seed_record(seed: int = 0, iters=(10, 40), final_dist: float = 1e-5, status: str = "reached") -> SeedRecord:
+    return SeedRecord(
+        seed=seed,
+        status=status,
+        iters=tuple(iters),
+        grad_calls=tuple(iters),
+        final_measure=1e-9,
+        final_dist=final_dist,
+        iterations_run=max((i for i in iters if i is not None), default=100),
+        fingerprint=(0.5, 0.25, 0.0625, 1.0 / 3.0),
+    )
+
+
+def case_record(key: str = "quad-a/full", seeds=(0,), iters_per_seed=None, oracle: str = "full") -> CaseRecord:
+    iters_per_seed = iters_per_seed or [(10, 40)] * len(seeds)
+    return CaseRecord(
+        key=key,
+        instance=key.split("/")[0],
+        definition_hash="ab" * 32,
+        x_tol=1e-3,
+        rule="adam",
+        rule_params=(("lr", 0.01),),
+        hyperparams=(("beta1", 0.9), ("beta2", 0.999), ("eps", 1e-8), ("lr", 0.01)),
+        oracle=oracle,
+        batch=None if oracle == "full" else 10,
+        replace=True,
+        seeds=tuple(seeds),
+        budget=1000,
+        targets=(1e-2, 1e-6),
+        measure="subopt",
+        status="reached",
+        outcomes=tuple(seed_record(s, it) for s, it in zip(seeds, iters_per_seed)),
+    )
+
+
+def baseline(*cases: CaseRecord) -> Baseline:
+    return Baseline(cases=cases or (case_record(),), rule_label="adam(lr=0.01)", machine={"cpu": "test"})
+
+
+def test_round_trip_is_exact(tmp_path: Path) -> None:
+    b = baseline(case_record("quad-b/full"), case_record("quad-a/full"))
+    path = write_baseline(b, tmp_path / "base.json")
+    back = load_baseline(path)
+    assert back.cases == tuple(sorted(b.cases, key=lambda c: c.key))  # sorted by key on write
+    # floats are written with repr and read back bit for bit
+    assert back.cases[0].outcomes[0].fingerprint[3] == 1.0 / 3.0
+    assert back.source == str(path)
+
+
+def test_file_is_diff_friendly(tmp_path: Path) -> None:
+    text = dumps(baseline(case_record("z/full"), case_record("a/full")))
+    data = json.loads(text)
+    assert text.endswith("\n") and "\n  " in text  # indent 2
+    assert [c["key"] for c in data["cases"]] == ["a/full", "z/full"]
+    assert list(data) == sorted(data)  # sorted keys
+    assert data["schema"] == SCHEMA
+
+
+def test_non_finite_floats_are_strict_json(tmp_path: Path) -> None:
+    c = case_record()
+    diverged = SeedRecord(0, "diverged", (None, None), (None, None), math.inf, math.nan, 7, (1.0, math.inf))
+    c = CaseRecord(**{**c.__dict__, "outcomes": (diverged,), "status": "diverged"})
+    text = dumps(baseline(c))
+    assert "NaN" not in text and "Infinity" not in text
+    back = parse_baseline(json.loads(text))
+    assert math.isinf(back.cases[0].outcomes[0].final_measure)
+    assert math.isnan(back.cases[0].outcomes[0].final_dist)
+
+
+def test_refuses_to_overwrite_without_force(tmp_path: Path) -> None:
+    path = tmp_path / "base.json"
+    write_baseline(baseline(), path)
+    before = path.read_text()
+    with pytest.raises(UserError, match="--force"):
+        write_baseline(baseline(case_record("other/full")), path)
+    assert path.read_text() == before
+    write_baseline(baseline(case_record("other/full")), path, force=True)
+    assert "other/full" in path.read_text()
+    assert [p.name for p in tmp_path.iterdir()] == ["base.json"]  # no temporary left behind
+
+
+def test_missing_file_and_bad_json(tmp_path: Path) -> None:
+    with pytest.raises(UserError, match="not found"):
+        load_baseline(tmp_path / "nope.json")
+    bad = tmp_path / "bad.json"
+    bad.write_text("{ not json")
+    with pytest.raises(UserError, match=r"bad\.json: not valid JSON \(line 1"):
+        load_baseline(bad)
+
+
+@pytest.mark.parametrize(
+    ("mutate", "field"),
+    [
+        (lambda d: d.pop("schema"), "schema: missing"),
+        (lambda d: d.update(schema="other/9"), "schema: 'other/9' is not supported"),
+        (lambda d: d["cases"][0].pop("definition_hash"), r"cases\[0\]\.definition_hash: missing"),
+        (lambda d: d["cases"][0].update(budget=0), r"cases\[0\]\.budget: must be >= 1"),
+        (lambda d: d["cases"][0].update(oracle="exact"), r"cases\[0\]\.oracle: 'exact' is not one of"),
+        (lambda d: d["cases"][0]["outcomes"][0].update(iters=[1]), r"cases\[0\]\.outcomes\[0\]\.iters: has 1 entries"),
+        (lambda d: d["cases"][0]["outcomes"][0].update(seed=3), r"cases\[0\]\.outcomes: seeds \[3\]"),
+        (lambda d: d["cases"][0]["outcomes"][0]["fingerprint"].append("x"), r"cases\[0\]\.outcomes\[0\]\.fingerprint\[4\]: expected a number"),
+        (lambda d: d.update(cases=[]), "cases: empty"),
+    ],
+)
+def test_validation_names_the_field(tmp_path: Path, mutate, field: str) -> None:
+    data = json.loads(dumps(baseline()))
+    mutate(data)
+    path = tmp_path / "b.json"
+    path.write_text(json.dumps(data))
+    with pytest.raises(UserError, match=rf"b\.json: {field}"):
+        load_baseline(path)
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    fp=st.lists(st.floats(allow_nan=False), min_size=0, max_size=12),
+    lr=st.floats(min_value=1e-12, max_value=1e3),
+)
+def test_round_trip_property(fp: list[float], lr: float) -> None:
+    """Any finite fingerprint and hyperparameter survives the file format exactly."""
+    c = case_record()
+    o = SeedRecord(**{**c.outcomes[0].__dict__, "fingerprint": tuple(fp)})
+    c = CaseRecord(**{**c.__dict__, "outcomes": (o,), "hyperparams": (("lr", lr),)})
+    back = parse_baseline(json.loads(dumps(baseline(c))))
+    assert back.cases[0] == c

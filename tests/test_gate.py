@@ -1,0 +1,148 @@
+"""The gate's verdict rules on hand-made records (pure; no runs)."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from benchsuite.baseline import CaseRecord, SeedRecord
+from benchsuite.errors import UserError
+from benchsuite.gate import GateConfig, check_definitions, judge, judge_case
+from test_baseline import baseline, case_record
+
+
+def with_outcomes(c: CaseRecord, **changes) -> CaseRecord:
+    """Same case, every seed's record changed as given."""
+    outs = tuple(SeedRecord(**{**o.__dict__, **changes}) for o in c.outcomes)
+    return CaseRecord(**{**c.__dict__, "outcomes": outs})
+
+
+def with_iters(c: CaseRecord, per_seed) -> CaseRecord:
+    outs = tuple(SeedRecord(**{**o.__dict__, "iters": tuple(it)}) for o, it in zip(c.outcomes, per_seed))
+    return CaseRecord(**{**c.__dict__, "outcomes": outs})
+
+
+def test_identical_rerun_passes() -> None:
+    base = case_record()
+    v = judge_case(base, base)
+    assert v.verdict == "pass" and not v.reasons and not v.notes
+
+
+def test_default_slack_is_max_one_iteration_one_percent() -> None:
+    cfg = GateConfig()
+    assert cfg.deterministic_allowance(40) == 1  # 1 % of 40 is 0.4 -> 1 iteration
+    assert cfg.deterministic_allowance(1000) == 10
+    assert cfg.deterministic_allowance(1001) == 11  # ceil
+    base = case_record(iters_per_seed=[(10, 1000)])
+    assert judge_case(base, with_iters(base, [(11, 1010)])).verdict == "pass"
+    v = judge_case(base, with_iters(base, [(11, 1011)]))
+    assert v.verdict == "fail"
+    assert v.reasons == ("target 1e-06: 1011 iterations vs baseline 1000 (+1.1 %, allowed +10)",)
+    assert judge_case(base, with_iters(base, [(12, 1000)])).verdict == "fail"  # 2 > 1 iteration
+
+
+def test_slack_is_configurable() -> None:
+    base = case_record(iters_per_seed=[(10, 1000)])
+    cand = with_iters(base, [(10, 1100)])
+    assert judge_case(base, cand).verdict == "fail"
+    assert judge_case(base, cand, GateConfig(slack_rel=0.1)).verdict == "pass"
+    assert judge_case(base, with_iters(base, [(15, 1000)]), GateConfig(slack_iters=5)).verdict == "pass"
+    with pytest.raises(UserError, match="--slack-rel"):
+        GateConfig(slack_rel=-0.1)
+
+
+def test_lost_target_fails_and_gained_target_improves() -> None:
+    base = case_record(iters_per_seed=[(10, None)])
+    lost = judge_case(base, with_iters(base, [(None, None)]))
+    assert lost.verdict == "fail" and "target 1e-02 no longer reached within budget 1000" in lost.reasons[0]
+    gained = judge_case(base, with_iters(base, [(10, 900)]))
+    assert gained.verdict == "improved" and "now reached" in gained.notes[0]
+
+
+def test_faster_is_an_improvement_not_a_failure() -> None:
+    base = case_record(iters_per_seed=[(10, 400)])
+    v = judge_case(base, with_iters(base, [(10, 300)]))
+    assert v.verdict == "improved"
+    rep = judge(baseline(base), [with_iters(base, [(10, 300)])])
+    assert rep.passed and "re-recording" in rep.summary()
+
+
+@pytest.mark.parametrize("status", ["diverged", "error", "timeout"])
+def test_bad_status_fails(status: str) -> None:
+    base = case_record()
+    v = judge_case(base, with_outcomes(base, status=status, error="ZeroDivisionError: boom"))
+    assert v.verdict == "fail" and v.reasons[0].startswith(f"seed 0: {status} after")
+    assert "boom" in v.reasons[0]
+
+
+def test_final_point_off_the_optimum_fails() -> None:
+    base = case_record()  # final_dist 1e-5 <= x_tol 1e-3
+    v = judge_case(base, with_outcomes(base, final_dist=2e-2))
+    assert v.verdict == "fail" and "x_tol" in v.reasons[0]
+    # not checked when the baseline itself was not within x_tol
+    loose = with_outcomes(base, final_dist=5e-2)
+    assert judge_case(loose, with_outcomes(base, final_dist=2e-2)).verdict == "pass"
+
+
+def test_stochastic_allowance_uses_the_baseline_seed_spread() -> None:
+    base = case_record(seeds=(0, 1, 2, 3, 4), iters_per_seed=[(10, v) for v in (100, 104, 110, 118, 120)], oracle="minibatch")
+    # median 110, range 20 -> allowance 20
+    ok = with_iters(base, [(10, v) for v in (110, 120, 130, 125, 129)])  # median 125: +15
+    assert judge_case(base, ok).verdict == "pass"
+    bad = with_iters(base, [(10, v) for v in (120, 126, 131, 140, 150)])  # median 131: +21
+    v = judge_case(base, bad)
+    assert v.verdict == "fail" and "allowed +20" in v.reasons[0]
+    # a target reached by fewer than half the seeds counts as not reached (median +inf)
+    lost = with_iters(base, [(10, v) for v in (100, 104, None, None, None)])
+    assert judge_case(base, lost).targets[1].outcome == "lost"
+
+
+def test_exact_mode_checks_the_fingerprint() -> None:
+    base = case_record()
+    fp = base.outcomes[0].fingerprint
+    tiny = with_outcomes(base, fingerprint=tuple(v * (1 + 1e-12) for v in fp))  # round-off level
+    small = with_outcomes(base, fingerprint=fp[:2] + (fp[2] * (1 + 1e-6),) + fp[3:])
+    cfg = GateConfig(exact=True)
+    assert judge_case(base, tiny, cfg).verdict == "pass"
+    v = judge_case(base, small, cfg)
+    assert v.verdict == "fail" and "fingerprint changed at iteration 4" in v.reasons[0]
+    assert judge_case(base, small).verdict == "pass"  # not checked by default
+
+
+def test_check_definitions_lists_changed_and_missing() -> None:
+    class Inst:
+        def __init__(self, h: str) -> None:
+            self.h = h
+
+        def definition_hash(self) -> str:
+            return self.h
+
+    b = baseline(case_record("a/full"), case_record("b/full"), case_record("c/full"))
+    check_definitions(b, {"a": Inst("ab" * 32), "b": Inst("ab" * 32), "c": Inst("ab" * 32)})
+    with pytest.raises(UserError, match="changed since the baseline was recorded: b; instances not in the catalogue: c"):
+        check_definitions(b, {"a": Inst("ab" * 32), "b": Inst("cd" * 32)})
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    seeds=st.lists(st.one_of(st.none(), st.integers(1, 10_000)), min_size=1, max_size=7),
+    slack=st.integers(0, 5),
+    rel=st.floats(0, 0.5),
+)
+def test_a_rerun_with_identical_counts_never_fails(seeds, slack, rel) -> None:
+    """Law: the same counts per seed pass whatever the configuration."""
+    n = len(seeds)
+    base = case_record(seeds=tuple(range(n)), iters_per_seed=[(v, v) for v in seeds], oracle="minibatch" if n > 1 else "full")
+    assert judge_case(base, base, GateConfig(slack_iters=slack, slack_rel=rel)).verdict == "pass"
+
+
+@settings(max_examples=200, deadline=None)
+@given(b=st.integers(1, 100_000), extra=st.integers(0, 100_000))
+def test_deterministic_rule_law(b: int, extra: int) -> None:
+    """Law: a deterministic case fails exactly when c - b > max(1, ceil(0.01 b))."""
+    base = case_record(iters_per_seed=[(b, b)])
+    v = judge_case(base, with_iters(base, [(b + extra, b + extra)]))
+    assert (v.verdict == "fail") == (extra > max(1, math.ceil(0.01 * b)))
