@@ -19,6 +19,8 @@ BUILTIN: dict[str, str] = {
     "quadratic": "benchsuite.families.quadratic:Quadratic",
     "least_squares": "benchsuite.families.least_squares:LeastSquares",
     "ridge": "benchsuite.families.least_squares:Ridge",
+    "logistic": "benchsuite.families.logistic:Logistic",
+    "softmax": "benchsuite.families.logistic:Softmax",
 }
 
 
