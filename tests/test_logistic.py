@@ -159,8 +159,9 @@ def test_logistic_matches_scikit_learn_and_scipy():
         # strong convexity (mu = lam): ||x - x*|| <= ||grad f(x)|| / lam for each of the two
         bound = (np.linalg.norm(p.grad(sk)) + np.linalg.norm(p.grad(res.x))) / p.lam
         assert np.linalg.norm(sk - res.x) <= bound
-        # and they agree to 1e-6 relative (sklearn's lbfgs stops near a 1e-8 gradient norm)
-        np.testing.assert_allclose(sk, res.x, rtol=1e-6, atol=1e-7)
+        # both solvers converged: the certified distance is below 1e-5 of ||x*|| (sklearn's
+        # lbfgs stops with a gradient norm near 1e-8; trust-ncg at 1e-10)
+        assert bound <= 1e-5 * np.linalg.norm(res.x)
 
 
 def test_softmax_labels_follow_the_model_and_reduce_to_logistic_for_two_classes():
