@@ -1,0 +1,318 @@
+"""Where runs are kept: run directories, atomic writes, the SQLite history.
+
+A run lives in ``<out>/runs/<run-id>/`` (``<out>`` defaults to ``results``):
+
+* ``meta.json`` -- what was run and on what (tool version, rule specs, the
+  request, the user's git commit and dirty flag, Python / numpy / scipy / BLAS
+  versions, CPU model, thread settings, start and end time, ``status``
+  ``"running"`` / ``"partial"`` / ``"complete"``, sweep selections);
+* ``cases/<hash>.json`` -- one file per finished case, written as soon as the
+  case finishes, so an interrupted run keeps what it finished and
+  ``--resume RUN_ID`` runs only the missing cases;
+* ``table.csv`` -- the tidy table (one row per case x seed x target).
+
+Every file is written atomically: to a temporary file in the same folder,
+flushed and ``fsync``-ed, then ``os.replace``-d over the target, so a killed
+process leaves either the old file or the new one, never half of one.
+
+The history ``<out>/history.sqlite`` (stdlib :mod:`sqlite3`) has two tables,
+``runs`` (one row per run: id, times, status, version, git commit, meta JSON)
+and ``rows`` (the tidy table, keyed by run id). A run is recorded in **one
+transaction** (its old rows deleted, the new ones inserted), so a killed
+process never leaves a half-recorded run; :func:`query_history` returns rows
+joined with their run as a DataFrame.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import re
+import secrets
+import sqlite3
+import tempfile
+import time
+from collections.abc import Iterator, Mapping, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from benchsuite.errors import UserError
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+__all__ = [
+    "TABLE_COLUMNS",
+    "RunDir",
+    "atomic_write_bytes",
+    "atomic_write_json",
+    "atomic_write_text",
+    "history_path",
+    "new_run_id",
+    "query_history",
+    "record_history",
+]
+
+#: columns of the tidy table (one row per case x seed x target), in order
+TABLE_COLUMNS: tuple[str, ...] = (
+    "case",
+    "instance",
+    "rule",
+    "hyperparams",
+    "oracle",
+    "batch",
+    "replace",
+    "measure",
+    "seed",
+    "target_index",
+    "target",
+    "iterations",
+    "grad_calls",
+    "epochs",
+    "time_to_target",
+    "time_spread",
+    "time_per_step",
+    "status",
+    "case_status",
+    "final_measure",
+    "final_dist",
+    "iterations_run",
+    "theory_bound",
+    "bound_violated",
+    "budget",
+)
+
+_RUN_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
+
+
+# -- atomic writes ------------------------------------------------------------
+def atomic_write_bytes(path: str | Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically (temp file in the same folder + ``os.replace``)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+
+
+def atomic_write_text(path: str | Path, text: str) -> None:
+    atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def atomic_write_json(path: str | Path, obj: Any) -> None:
+    """JSON with sorted keys and indentation (diffs well); NaN/inf are refused."""
+    atomic_write_text(path, json.dumps(obj, indent=2, sort_keys=True, allow_nan=False) + "\n")
+
+
+# -- run directories -----------------------------------------------------------
+def new_run_id() -> str:
+    """``YYYYmmdd-HHMMSS-xxxxxx`` (UTC time and 6 random hex digits)."""
+    return time.strftime("%Y%m%d-%H%M%S", time.gmtime()) + "-" + secrets.token_hex(3)
+
+
+class RunDir:
+    """The folder of one run: ``meta.json``, ``cases/*.json``, ``table.csv``."""
+
+    def __init__(self, path: Path, run_id: str) -> None:
+        self.path = path
+        self.run_id = run_id
+
+    @classmethod
+    def create(cls, out: str | Path, run_id: str | None = None) -> RunDir:
+        run_id = run_id or new_run_id()
+        path = Path(out) / "runs" / run_id
+        path.mkdir(parents=True, exist_ok=False)
+        (path / "cases").mkdir()
+        return cls(path, run_id)
+
+    @classmethod
+    def open(cls, out: str | Path, run_id: str) -> RunDir:
+        """An existing run (for ``--resume``); ``UserError`` when there is none."""
+        if not _RUN_ID.match(run_id):
+            raise UserError(f"--resume: {run_id!r} is not a run id")
+        path = Path(out) / "runs" / run_id
+        if not (path / "meta.json").is_file():
+            raise UserError(f"--resume: no run {run_id!r} under {Path(out) / 'runs'}")
+        (path / "cases").mkdir(exist_ok=True)
+        return cls(path, run_id)
+
+    @property
+    def meta_path(self) -> Path:
+        return self.path / "meta.json"
+
+    @property
+    def table_path(self) -> Path:
+        return self.path / "table.csv"
+
+    def read_meta(self) -> dict[str, Any]:
+        try:
+            return json.loads(self.meta_path.read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError) as exc:
+            raise UserError(f"{self.meta_path}: cannot read run metadata ({exc})") from None
+
+    def write_meta(self, meta: Mapping[str, Any]) -> None:
+        atomic_write_json(self.meta_path, dict(meta))
+
+    def _case_path(self, key: str) -> Path:
+        return self.path / "cases" / (hashlib.sha256(key.encode()).hexdigest()[:24] + ".json")
+
+    def save_case(self, key: str, payload: Mapping[str, Any]) -> None:
+        """Store one finished case (``payload`` must hold ``key``); replaces an earlier one."""
+        atomic_write_json(self._case_path(key), {"key": key, **payload})
+
+    def load_cases(self) -> dict[str, dict[str, Any]]:
+        """Every stored case by key (files that do not parse are ignored: never half-written)."""
+        found: dict[str, dict[str, Any]] = {}
+        for file in sorted((self.path / "cases").glob("*.json")):
+            try:
+                payload = json.loads(file.read_text(encoding="utf-8"))
+            except (OSError, json.JSONDecodeError):
+                continue
+            found[payload["key"]] = payload
+        return found
+
+    def write_table(self, frame: pd.DataFrame) -> None:
+        atomic_write_text(self.table_path, frame.to_csv(index=False))
+
+
+# -- history -------------------------------------------------------------------
+def history_path(out: str | Path) -> Path:
+    return Path(out) / "history.sqlite"
+
+
+_SQL_TYPES = {
+    "batch": "INTEGER",
+    "seed": "INTEGER",
+    "target_index": "INTEGER",
+    "target": "REAL",
+    "iterations": "INTEGER",
+    "grad_calls": "INTEGER",
+    "epochs": "REAL",
+    "time_to_target": "REAL",
+    "time_spread": "REAL",
+    "time_per_step": "REAL",
+    "final_measure": "REAL",
+    "final_dist": "REAL",
+    "iterations_run": "INTEGER",
+    "theory_bound": "INTEGER",
+    "bound_violated": "INTEGER",
+    "replace": "INTEGER",
+    "budget": "INTEGER",
+}
+
+
+@contextlib.contextmanager
+def _connect(db: Path) -> Iterator[sqlite3.Connection]:
+    db.parent.mkdir(parents=True, exist_ok=True)
+    conn = sqlite3.connect(db, timeout=30.0)
+    try:
+        conn.execute("PRAGMA foreign_keys = ON")
+        with conn:
+            conn.execute(
+                "CREATE TABLE IF NOT EXISTS runs (run_id TEXT PRIMARY KEY, started TEXT, ended TEXT, "
+                "status TEXT, version TEXT, git_commit TEXT, git_dirty INTEGER, meta TEXT)"
+            )
+            cols = ", ".join(f'"{c}" {_SQL_TYPES.get(c, "TEXT")}' for c in TABLE_COLUMNS)
+            conn.execute(
+                f"CREATE TABLE IF NOT EXISTS rows (run_id TEXT NOT NULL REFERENCES runs(run_id) "
+                f"ON DELETE CASCADE, {cols})"
+            )
+            conn.execute("CREATE INDEX IF NOT EXISTS rows_run ON rows(run_id)")
+        yield conn
+    finally:
+        conn.close()
+
+
+def _sql_value(v: Any) -> Any:
+    if v is None:
+        return None
+    if hasattr(v, "item"):  # numpy scalar
+        v = v.item()
+    if isinstance(v, float) and v != v:  # NaN -> NULL
+        return None
+    if isinstance(v, bool):
+        return int(v)
+    return v
+
+
+def record_history(db: str | Path, run_id: str, meta: Mapping[str, Any], rows: Sequence[Mapping[str, Any]]) -> None:
+    """Record (or re-record, after a resume) one run and its rows in one transaction."""
+    git = meta.get("git") or {}
+    with _connect(Path(db)) as conn, conn:
+        conn.execute("DELETE FROM rows WHERE run_id = ?", (run_id,))
+        conn.execute(
+            "INSERT OR REPLACE INTO runs VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+            (
+                run_id,
+                meta.get("started"),
+                meta.get("ended"),
+                meta.get("status"),
+                meta.get("version"),
+                git.get("commit"),
+                None if git.get("dirty") is None else int(bool(git.get("dirty"))),
+                json.dumps(meta, sort_keys=True, allow_nan=False),
+            ),
+        )
+        marks = ", ".join("?" for _ in TABLE_COLUMNS)
+        names = ", ".join(f'"{c}"' for c in TABLE_COLUMNS)
+        conn.executemany(
+            f"INSERT INTO rows (run_id, {names}) VALUES (?, {marks})",
+            [(run_id, *(_sql_value(r.get(c)) for c in TABLE_COLUMNS)) for r in rows],
+        )
+
+
+def query_history(
+    db: str | Path,
+    *,
+    instance: str | None = None,
+    rule: str | None = None,
+    run_id: str | None = None,
+    since: str | None = None,
+    commit: str | None = None,
+) -> pd.DataFrame:
+    """Rows of the history joined with their run, filtered, oldest run first.
+
+    ``instance`` and ``rule`` accept SQL ``LIKE`` patterns (``%`` wildcard);
+    ``since`` is an ISO date/time compared with the run's start;
+    ``commit`` a prefix of the git commit.
+    """
+    import pandas as pd
+
+    db = Path(db)
+    if not db.is_file():
+        raise UserError(f"{db}: no history yet (run `benchsuite run` first)")
+    where, args = [], []
+    if instance:
+        where.append("rows.instance LIKE ?")
+        args.append(instance)
+    if rule:
+        where.append("rows.rule LIKE ?")
+        args.append(rule)
+    if run_id:
+        where.append("rows.run_id = ?")
+        args.append(run_id)
+    if since:
+        where.append("runs.started >= ?")
+        args.append(since)
+    if commit:
+        where.append("runs.git_commit LIKE ?")
+        args.append(commit + "%")
+    sql = (
+        "SELECT rows.run_id, runs.started, runs.status AS run_status, runs.git_commit, runs.git_dirty, "
+        + ", ".join(f'rows."{c}"' for c in TABLE_COLUMNS)
+        + " FROM rows JOIN runs USING (run_id)"
+        + (" WHERE " + " AND ".join(where) if where else "")
+        + " ORDER BY runs.started, rows.rowid"
+    )
+    with _connect(db) as conn:
+        return pd.read_sql_query(sql, conn, params=args)
