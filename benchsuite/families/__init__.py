@@ -21,6 +21,7 @@ BUILTIN: dict[str, str] = {
     "ridge": "benchsuite.families.least_squares:Ridge",
     "logistic": "benchsuite.families.logistic:Logistic",
     "softmax": "benchsuite.families.logistic:Softmax",
+    "huber": "benchsuite.families.huber:Huber",
 }
 
 
