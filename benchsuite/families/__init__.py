@@ -22,6 +22,7 @@ BUILTIN: dict[str, str] = {
     "logistic": "benchsuite.families.logistic:Logistic",
     "softmax": "benchsuite.families.logistic:Softmax",
     "huber": "benchsuite.families.huber:Huber",
+    "rosenbrock": "benchsuite.families.rosenbrock:Rosenbrock",
 }
 
 
