@@ -15,6 +15,7 @@ import xml.etree.ElementTree as ET
 from collections.abc import Sequence
 from typing import Any
 
+from benchsuite.compare import CaseComparison, Comparison
 from benchsuite.gate import CaseVerdict, GateReport, TargetCheck
 
 __all__ = [
@@ -23,6 +24,9 @@ __all__ = [
     "gate_markdown",
     "gate_junit",
     "gate_json",
+    "compare_table",
+    "compare_markdown",
+    "compare_json",
 ]
 
 _MARK = {"pass": "pass", "improved": "improved", "fail": "FAIL"}
@@ -182,6 +186,83 @@ def gate_json(report: GateReport) -> str:
                 ],
             }
             for v in report.verdicts
+        ],
+    }
+    return json.dumps(doc, indent=2, sort_keys=True) + "\n"
+
+
+# ---------------------------------------------------------------- compare
+def _x(v: float | None) -> str:
+    return "-" if v is None else f"{v:.3f}"
+
+
+def _ci(c: CaseComparison | Comparison) -> str:
+    return "-" if c.ci is None else f"{c.ci[0]:.3f}-{c.ci[1]:.3f}"
+
+
+def _compare_rows(result: Comparison) -> list[tuple[str, ...]]:
+    rows = []
+    for c in result.cases:
+        its = "-" if c.iters_a is None else f"{c.iters_a}/{c.iters_b}"
+        target = "steps" if c.target is None else f"{c.target:.0e}"
+        sig = "yes" if c.significant else "no"
+        rows.append((c.instance, target, its, _x(c.iter_ratio), _x(c.ratio), _ci(c), sig, _x(c.step_ratio), c.note))
+    return rows
+
+
+_COMPARE_HEAD = ("instance", "target", "iters A/B", "iter B/A", "time B/A", "95% CI", "signif.", "step B/A", "note")
+
+
+def compare_table(result: Comparison) -> str:
+    """Terminal table of a comparison: per case, then the overall line."""
+    head = f"A = {result.label_a}\nB = {result.label_b}\n{result.method}; {result.repeats} pairs per case\n"
+    return head + table(_COMPARE_HEAD, _compare_rows(result)) + "\n" + result.summary()
+
+
+def compare_markdown(result: Comparison) -> str:
+    """Markdown: the overall verdict first, the per-case table folded."""
+    out = [f"## benchsuite compare: {_md_escape(result.summary())}", ""]
+    out.append(f"A = `{_md_escape(result.label_a)}`, B = `{_md_escape(result.label_b)}`. {_md_escape(result.method)}.")
+    changed = [c for c in result.cases if c.iters_a is not None and c.iters_a != c.iters_b]
+    if changed:
+        out += ["", f"**Iteration counts differ on {len(changed)} case(s)**: there the time ratio reflects changed "
+                "behaviour (more or fewer steps), not faster or slower steps; see the step B/A column."]
+    out += ["", f"<details><summary>{len(result.cases)} case(s)</summary>", ""]
+    out.append("| " + " | ".join(_COMPARE_HEAD) + " |")
+    out.append("|" + "---|" * len(_COMPARE_HEAD))
+    out += ["| " + " | ".join(_md_escape(v) for v in row) + " |" for row in _compare_rows(result)]
+    out += ["", "</details>"]
+    return "\n".join(out) + "\n"
+
+
+def compare_json(result: Comparison) -> str:
+    doc = {
+        "a": result.label_a,
+        "b": result.label_b,
+        "method": result.method,
+        "repeats": result.repeats,
+        "time_ratio": result.ratio,
+        "ci": None if result.ci is None else list(result.ci),
+        "significant": result.significant,
+        "summary": result.summary(),
+        "cases": [
+            {
+                "instance": c.instance,
+                "status_a": c.status_a,
+                "status_b": c.status_b,
+                "target": c.target,
+                "iters_a": c.iters_a,
+                "iters_b": c.iters_b,
+                "iter_ratio": c.iter_ratio,
+                "time_ratio": c.ratio,
+                "ci": None if c.ci is None else list(c.ci),
+                "significant": c.significant,
+                "step_ratio": c.step_ratio,
+                "times_a": list(c.times_a),
+                "times_b": list(c.times_b),
+                "note": c.note,
+            }
+            for c in result.cases
         ],
     }
     return json.dumps(doc, indent=2, sort_keys=True) + "\n"

@@ -1,0 +1,46 @@
+"""``benchsuite gate``: rerun a baseline's cases with a candidate rule; exit 0 pass, 1 fail."""
+
+from __future__ import annotations
+
+import argparse
+
+HELP = "rerun a baseline's cases with a candidate rule and pass or fail it (exit 0/1)"
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--rule", required=True, help="candidate rule: built-in name or import path package.module:attr")
+    p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a recorded hyperparameter (repeatable)")
+    p.add_argument("--baseline", required=True, help="baseline file recorded by `benchsuite baseline`")
+    p.add_argument("--catalogue", action="append", default=[], metavar="PATH", help="extra catalogue file or folder")
+    p.add_argument("--slack-iters", type=int, default=1, help="allowed extra iterations (default 1)")
+    p.add_argument("--slack-rel", type=float, default=0.01, help="allowed relative extra iterations (default 0.01)")
+    p.add_argument("--noise-factor", type=float, default=1.0,
+                   help="stochastic cases: allowance also c x (max - min) of the baseline seeds (default 1)")
+    p.add_argument("--exact", action="store_true", help="also fail on any change of the trajectory fingerprint")
+    p.add_argument("--markdown", metavar="FILE", help="write a pull-request comment in Markdown")
+    p.add_argument("--junit", metavar="FILE", help="write JUnit XML (one test case per gate case)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of the table")
+    p.add_argument("--jobs", type=int, default=None, help="worker processes (default: cores)")
+    p.add_argument("--timeout", type=float, default=None, help="per-case wall-clock limit in seconds")
+
+
+def run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from benchsuite.baseline import load_baseline
+    from benchsuite.gate import GateConfig, run_gate
+    from benchsuite.report import gate_json, gate_junit, gate_markdown, gate_table
+    from benchsuite.results import atomic_write_text
+
+    config = GateConfig(slack_iters=args.slack_iters, slack_rel=args.slack_rel, noise_factor=args.noise_factor,
+                        exact=args.exact)
+    baseline = load_baseline(args.baseline)
+    report = run_gate(baseline, args.rule, args.param, config=config, jobs=args.jobs,
+                      catalogue_paths=args.catalogue, timeout=args.timeout)
+    if args.markdown:
+        atomic_write_text(Path(args.markdown), gate_markdown(report))
+    if args.junit:
+        atomic_write_text(Path(args.junit), gate_junit(report))
+    print(gate_json(report) if args.json else gate_table(report), end="" if args.json else "\n")
+    return 0 if report.passed else 1

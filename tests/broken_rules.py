@@ -1,0 +1,178 @@
+"""Deliberately broken variants of common update rules, for the gate's self-test.
+
+Each class takes the same hyperparameters as the built-in rule it breaks
+(``benchsuite.rules``), so the gate can rerun a baseline recorded with the
+built-in rule, passing the recorded hyperparameters, with the broken copy.
+Each docstring says what is wrong. ``TextbookAdam`` and ``TextbookHeavyBall``
+are *correct* independent re-implementations (plain numpy, no shared code):
+the gate must pass them.
+
+Written in the numpy rule contract: ``init(x0) -> state``,
+``step(x, g, state) -> (x, state)``.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+
+class TextbookAdam:
+    """Correct Adam (Kingma & Ba 2015, Algorithm 1), eps outside the root of v_hat."""
+
+    def __init__(self, lr: float = 1e-3, beta1: float = 0.9, beta2: float = 0.999, eps: float = 1e-8) -> None:
+        self.lr, self.beta1, self.beta2, self.eps = lr, beta1, beta2, eps
+
+    def init(self, x0: np.ndarray) -> dict[str, Any]:
+        return {"m": np.zeros_like(x0), "v": np.zeros_like(x0), "t": 0}
+
+    def _update(self, g: np.ndarray, s: dict[str, Any]) -> None:
+        s["t"] += 1
+        s["m"] = self.beta1 * s["m"] + (1 - self.beta1) * g
+        s["v"] = self.beta2 * s["v"] + (1 - self.beta2) * g * g
+
+    def step(self, x: np.ndarray, g: np.ndarray, s: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
+        self._update(g, s)
+        t = s["t"]
+        m_hat = s["m"] / (1 - self.beta1**t)
+        v_hat = s["v"] / (1 - self.beta2**t)
+        return x - self.lr * m_hat / (np.sqrt(v_hat) + self.eps), s
+
+
+class AdamNoBiasCorrection(TextbookAdam):
+    """BROKEN: the bias corrections 1/(1 - beta^t) are missing."""
+
+    def step(self, x, g, s):
+        self._update(g, s)
+        return x - self.lr * s["m"] / (np.sqrt(s["v"]) + self.eps), s
+
+
+class AdamEpsInsideSqrt(TextbookAdam):
+    """BROKEN: eps inside the square root, sqrt(v_hat + eps), instead of sqrt(v_hat) + eps.
+
+    With eps = 1e-8 the denominator has a floor of 1e-4 instead of 1e-8: it only
+    shows once the gradients are small, near tight targets.
+    """
+
+    def step(self, x, g, s):
+        self._update(g, s)
+        t = s["t"]
+        m_hat = s["m"] / (1 - self.beta1**t)
+        v_hat = s["v"] / (1 - self.beta2**t)
+        return x - self.lr * m_hat / np.sqrt(v_hat + self.eps), s
+
+
+class AdamBeta2AsBeta1(TextbookAdam):
+    """BROKEN: wrong decay constant: the first moment decays with beta2 (typo beta2 for beta1)."""
+
+    def step(self, x, g, s):
+        s["t"] += 1
+        t = s["t"]
+        s["m"] = self.beta2 * s["m"] + (1 - self.beta2) * g
+        s["v"] = self.beta2 * s["v"] + (1 - self.beta2) * g * g
+        m_hat = s["m"] / (1 - self.beta2**t)
+        v_hat = s["v"] / (1 - self.beta2**t)
+        return x - self.lr * m_hat / (np.sqrt(v_hat) + self.eps), s
+
+
+class AdamStepOffByOne(TextbookAdam):
+    """BROKEN: step counter off by one: bias corrections use t + 1 instead of t."""
+
+    def step(self, x, g, s):
+        self._update(g, s)
+        t = s["t"] + 1
+        m_hat = s["m"] / (1 - self.beta1**t)
+        v_hat = s["v"] / (1 - self.beta2**t)
+        return x - self.lr * m_hat / (np.sqrt(v_hat) + self.eps), s
+
+
+class AdamLrSquared(TextbookAdam):
+    """BROKEN: the learning rate applied twice: the step is scaled by lr * lr."""
+
+    def step(self, x, g, s):
+        self._update(g, s)
+        t = s["t"]
+        m_hat = s["m"] / (1 - self.beta1**t)
+        v_hat = s["v"] / (1 - self.beta2**t)
+        return x - self.lr * self.lr * m_hat / (np.sqrt(v_hat) + self.eps), s
+
+
+class TextbookHeavyBall:
+    """Correct heavy ball (Polyak 1964): x+ = x - lr g + momentum (x - x_prev)."""
+
+    def __init__(self, lr: float = 1e-3, momentum: float = 0.9, dampening: float = 0.0) -> None:
+        self.lr, self.momentum, self.dampening = lr, momentum, dampening
+
+    def init(self, x0: np.ndarray) -> dict[str, Any]:
+        return {"prev": x0.copy()}
+
+    def step(self, x, g, s):
+        new = x - self.lr * g + self.momentum * (x - s["prev"])
+        s["prev"] = x.copy()
+        return new, s
+
+
+class HeavyBallSignError(TextbookHeavyBall):
+    """BROKEN: sign error in the momentum term: - momentum (x - x_prev)."""
+
+    def step(self, x, g, s):
+        new = x - self.lr * g - self.momentum * (x - s["prev"])
+        s["prev"] = x.copy()
+        return new, s
+
+
+class HeavyBallStaleBuffer(TextbookHeavyBall):
+    """BROKEN: the momentum buffer is never updated (x_prev stays x0)."""
+
+    def step(self, x, g, s):
+        return x - self.lr * g + self.momentum * (x - s["prev"]), s
+
+
+class RMSPropEpsInsideSqrt:
+    """BROKEN: RMSProp with eps inside the root whatever ``eps_inside_sqrt`` says."""
+
+    def __init__(self, lr: float = 1e-3, decay: float = 0.9, eps: float = 1e-8, eps_inside_sqrt: bool = False,
+                 initial_mean_square: float = 0.0) -> None:
+        self.lr, self.decay, self.eps, self.v0 = lr, decay, eps, initial_mean_square
+
+    def init(self, x0):
+        return {"v": np.full_like(x0, self.v0)}
+
+    def _mean_square(self, g, s, decay):
+        s["v"] = decay * s["v"] + (1 - decay) * g * g
+        return s["v"]
+
+    def step(self, x, g, s):
+        v = self._mean_square(g, s, self.decay)
+        return x - self.lr * g / np.sqrt(v + self.eps), s
+
+
+class RMSPropWrongDecay(RMSPropEpsInsideSqrt):
+    """BROKEN: wrong decay constant: 0.95 hard-coded instead of the ``decay`` given."""
+
+    def step(self, x, g, s):
+        v = self._mean_square(g, s, 0.95)
+        return x - self.lr * g / (np.sqrt(v) + self.eps), s
+
+
+class TextbookRMSProp(RMSPropEpsInsideSqrt):
+    """Correct RMSProp, eps outside the root."""
+
+    def step(self, x, g, s):
+        v = self._mean_square(g, s, self.decay)
+        return x - self.lr * g / (np.sqrt(v) + self.eps), s
+
+
+class GDStepTwice:
+    """BROKEN: gradient descent applying the step twice per iteration (effective 2 lr)."""
+
+    def __init__(self, lr: float = 1e-3) -> None:
+        self.lr = lr
+
+    def init(self, x0):
+        return None
+
+    def step(self, x, g, s):
+        x = x - self.lr * g
+        return x - self.lr * g, s
