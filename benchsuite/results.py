@@ -82,6 +82,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "theory_bound",
     "bound_violated",
     "budget",
+    "selected",
 )
 
 _RUN_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
@@ -208,6 +209,7 @@ _SQL_TYPES = {
     "bound_violated": "INTEGER",
     "replace": "INTEGER",
     "budget": "INTEGER",
+    "selected": "INTEGER",
 }
 
 

@@ -51,7 +51,7 @@ every rate below holds with the constants the rule was actually tuned with.
 3. **Heavy ball with Polyak's parameters on a strongly convex quadratic**
    (rule ``heavy_ball`` with ``lr = 4 / (sqrt(L) + sqrt(mu))^2``,
    ``momentum = beta = rho^2``, ``rho = (sqrt(kappa) - 1)/(sqrt(kappa) + 1)``;
-   Polyak 1964). In the eigenbasis of the Hessian each mode with eigenvalue
+   and no dampening; Polyak 1964). In the eigenbasis of the Hessian each mode with eigenvalue
    ``lam`` obeys ``e_{k+1} = (1 + beta - lr lam) e_k - beta e_{k-1}``. The roots
    ``r1, r2`` of ``r^2 - (1 + beta - lr lam) r + beta = 0`` have ``r1 r2 = beta``;
    with Polyak's parameters ``|1 + beta - lr lam| <= 2 sqrt(beta)`` for every
@@ -181,6 +181,8 @@ def applicable_bound(
         rho = (s - 1.0) / (s + 1.0)
         want_lr = 4.0 / (math.sqrt(L) + math.sqrt(mu)) ** 2
         if not (_close(lr, want_lr) and _close(_get(hyperparams, "momentum", "beta"), rho * rho)):
+            return None
+        if _get(hyperparams, "dampening") not in (None, 0, 0.0):
             return None
         lr_ = math.log(rho)
         src = "Polyak 1964 parameters; per-mode recurrence bound derived in benchsuite.theory"
