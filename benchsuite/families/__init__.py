@@ -23,6 +23,9 @@ BUILTIN: dict[str, str] = {
     "softmax": "benchsuite.families.logistic:Softmax",
     "huber": "benchsuite.families.huber:Huber",
     "rosenbrock": "benchsuite.families.rosenbrock:Rosenbrock",
+    "mgh": "benchsuite.families.mgh:MGH",
+    "nist_strd": "benchsuite.families.nist:NistStrd",
+    "longley": "benchsuite.families.longley:Longley",
 }
 
 
