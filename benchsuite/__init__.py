@@ -13,4 +13,12 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__"]
+__all__ = ["__version__", "run"]
+
+
+def __getattr__(name: str):  # lazy: `import benchsuite` stays light
+    if name == "run":
+        from benchsuite.runner import run
+
+        return run
+    raise AttributeError(f"module 'benchsuite' has no attribute {name!r}")

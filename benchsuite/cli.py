@@ -19,7 +19,10 @@ from benchsuite import __version__
 from benchsuite.errors import UserError
 
 #: sub-command name -> one-line help. The module is benchsuite.commands.<name>.
-COMMANDS: dict[str, str] = {}
+COMMANDS: dict[str, str] = {
+    "run": "run update rules on catalogue problems: iterations, gradient calls and wall time to targets",
+    "history": "query the history of recorded runs",
+}
 
 
 class _Parser(argparse.ArgumentParser):

@@ -317,4 +317,8 @@ def query_history(
         + " ORDER BY runs.started, rows.rowid"
     )
     with _connect(db) as conn:
-        return pd.read_sql_query(sql, conn, params=args)
+        df = pd.read_sql_query(sql, conn, params=args)
+    for col, kind in _SQL_TYPES.items():
+        if kind == "INTEGER" and col in df:
+            df[col] = df[col].astype("Int64")
+    return df
