@@ -400,8 +400,8 @@ class NesterovSC(Rule):
     when L and mu are known (Nesterov 2004, "Introductory Lectures on Convex
     Optimization", constant step scheme III, (2.2.19), from memory);
     ``f(x_k) - f* <= (1 - 1/sqrt(kappa))^k (f(x_0) - f* + mu/2 ||x_0 - x*||^2)``.
-    Returns the gradient point ``y``. Without constants: ``lr = 1e-3``,
-    ``momentum = 0.9`` (common practice, no source). Algebraically identical to
+    Returns the gradient point ``y``. Defaults without constants:
+    ``lr = 1e-3``, ``momentum = 0.9`` (common practice, no source). Algebraically identical to
     torch ``SGD(lr, momentum, nesterov=True)`` (checked in the tests).
     """
 
@@ -441,7 +441,7 @@ class AdaGrad(Rule):
     ``s_t = s_{t-1} + g_t^2`` (``s_0 = initial_accumulator``),
     ``x <- x - lr_t g_t / (sqrt(s_t) + eps)``, ``lr_t = lr / (1 + (t-1) lr_decay)``.
     The paper's delta sits outside the square root, as here and in torch.
-    The paper prescribes no numeric eta or delta: ``lr = 1e-2``,
+    Defaults: the paper prescribes no numeric eta or delta; ``lr = 1e-2``,
     ``eps = 1e-10``, ``initial_accumulator = 0``, ``lr_decay = 0`` are torch's
     defaults (common practice). torch: ``Adagrad(lr, lr_decay, eps,
     initial_accumulator_value)``.
@@ -809,7 +809,10 @@ class NAdam(Rule):
 
     Defaults: ``lr = 2e-3``, ``beta1 = 0.9``, ``beta2 = 0.999``, ``eps = 1e-8``
     (as in torch and Keras; Dozat's experiments, from memory and uncertain).
-    torch: ``NAdam(lr, betas, eps, momentum_decay)`` with ``schedule = "dozat"``.
+    torch: ``NAdam(lr, betas, eps, momentum_decay)`` with ``schedule = "dozat"``;
+    torch keeps the product ``P_t`` in its default dtype (float32 unless
+    ``torch.set_default_dtype(torch.float64)``), which alone shifts iterates
+    by ~1e-8 relative.
     """
 
     name = "nadam"
@@ -925,5 +928,5 @@ TORCH_MAPPING: dict[str, str] = {
     "adamw": "AdamW(lr, betas, eps, weight_decay) with decay_scaled_by_lr=true",
     "amsgrad": "Adam(lr, betas, eps, amsgrad=True) with bias_correction=true",
     "adamax": "Adamax(lr, betas, eps) (eps inside the max; paper eps=0, torch 1e-8)",
-    "nadam": "NAdam(lr, betas, eps, momentum_decay) with schedule=dozat",
+    "nadam": "NAdam(lr, betas, eps, momentum_decay) with schedule=dozat (torch default dtype float64 for float64 equality)",
 }

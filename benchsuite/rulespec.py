@@ -371,7 +371,9 @@ class TorchOptimizerRule:
     and creates the optimizer on it; ``step`` writes the gradient to ``.grad``
     (a tensor sharing memory with ``g``), calls ``optimizer.step()`` and
     returns the numpy view of the tensor. When the runner hands that same
-    array back, nothing is copied.
+    array back, nothing is copied. The first step runs with torch's default
+    dtype set to the problem's, because torch keeps scalar state (step
+    counters, NAdam's momentum product) in the default dtype.
     """
 
     def __init__(self, cls: type, params: dict[str, Any], dtype: np.dtype, label: str) -> None:
@@ -391,7 +393,7 @@ class TorchOptimizerRule:
     def init(self, x0: np.ndarray) -> dict[str, Any]:
         arr = np.array(x0, dtype=self.dtype, order="C", copy=True)
         p = self._torch.from_numpy(arr)
-        return {"p": p, "x": arr, "opt": self.cls([p], **self.params)}
+        return {"p": p, "x": arr, "opt": self.cls([p], **self.params), "fresh": True}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
         arr, p = state["x"], state["p"]
@@ -400,7 +402,16 @@ class TorchOptimizerRule:
         if g.dtype != self.dtype or not g.flags.c_contiguous:
             g = np.ascontiguousarray(g, dtype=self.dtype)
         p.grad = self._torch.from_numpy(g)
-        state["opt"].step()
+        if state["fresh"]:  # optimizers create their state on the first step: scalar state in our dtype
+            old = self._torch.get_default_dtype()
+            self._torch.set_default_dtype(self._tdtype)
+            try:
+                state["opt"].step()
+            finally:
+                self._torch.set_default_dtype(old)
+            state["fresh"] = False
+        else:
+            state["opt"].step()
         p.grad = None
         return arr, state
 
