@@ -1,0 +1,213 @@
+"""Tests of benchsuite.runner: exact first crossings, theory bounds, determinism, containment.
+
+Rules used here are tiny classes written in the tests (``tests/faulty_rules.py``)
+or the built-in ones by name; problems are the Quadratic family built directly
+or small catalogue instances.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from benchsuite.catalogue import load_catalogue, select
+from benchsuite.families.quadratic import Quadratic
+from benchsuite.optimum import certified_optimum
+from benchsuite.oracle import OracleSpec
+from benchsuite.rulespec import parse_rule
+from benchsuite.runner import (
+    Case,
+    aggregate_status,
+    monitored_pass,
+    replay_seconds,
+    result_from_dict,
+    result_to_dict,
+    run_cases,
+    to_frame,
+)
+
+TESTS = Path(__file__).parent
+sys.path.insert(0, str(TESTS))  # faulty_rules importable in this process and its forked workers
+
+import faulty_rules  # noqa: E402
+
+
+@pytest.fixture(scope="module")
+def catalogue():
+    return load_catalogue()
+
+
+@pytest.fixture(scope="module")
+def quad(catalogue):
+    inst = catalogue["quad-diag-kappa10-d10"]
+    certified_optimum(inst)  # warm the reference cache once, before workers start
+    return inst
+
+
+@pytest.fixture(scope="module")
+def lsq(catalogue):
+    inst = catalogue["lsq-kappa1e2-500x50"]
+    certified_optimum(inst)
+    return inst
+
+
+# -- exactness -----------------------------------------------------------------------
+def _closed_form_subopt(lam: np.ndarray, e0: np.ndarray, lr: float, k: int) -> float:
+    # Closed form for gradient descent on f(x) = 1/2 sum_i lam_i (x_i - x*_i)^2:
+    # e_{k+1} = e_k - lr * lam * e_k, so e_{k,i} = (1 - lr lam_i)^k e_{0,i} and
+    # f(x_k) - f* = 1/2 sum_i lam_i (1 - lr lam_i)^(2k) e_{0,i}^2; dividing by
+    # f(x_0) - f* = 1/2 sum_i lam_i e_{0,i}^2 gives the relative suboptimality.
+    return float(np.sum(lam * (1 - lr * lam) ** (2 * k) * e0**2) / np.sum(lam * e0**2))
+
+
+SPECTRA = {
+    "three": [0.1, 0.5, 1.0],
+    "geometric-1e2": list(np.geomspace(1e-2, 1.0, 10)),
+    "linear-20": list(np.linspace(0.05, 2.0, 20)),
+}
+
+
+@pytest.mark.parametrize("spectrum", sorted(SPECTRA))
+@pytest.mark.parametrize("step", [1.0, 1.5, 0.3])
+def test_gd_first_crossings_equal_the_closed_form(spectrum: str, step: float) -> None:
+    q = Quadratic(eigenvalues=SPECTRA[spectrum], seed=7)
+    lam = q.eigenvalues
+    lr = step / lam[-1]  # step in units of 1/L; all below 2/L so every mode contracts
+    e0 = q.initial_point() - q.x_star
+    targets = [0.3, 1e-2, 3.7e-4, 1e-6, 2e-9, 1e-11]
+    budget = 4000
+    out = monitored_pass(q, faulty_rules.PlainGD(lr=lr), x_star=q.x_star, f_star=0.0, targets=targets, budget=budget)
+    r = [_closed_form_subopt(lam, e0, lr, k) for k in range(budget + 1)]
+    checked = 0
+    for j, t in enumerate(targets):
+        k_exact = next((k for k in range(budget + 1) if r[k] <= t), None)
+        if k_exact is not None:
+            near = [r[k_exact]] + ([r[k_exact - 1]] if k_exact > 0 else [])
+            # a crossing within 1e-9 relative of the target could flip on float64 round-off
+            # (the iterate carries ~k * 1e-16 relative error): not a fair exactness check
+            if any(abs(v - t) <= 1e-9 * t for v in near):
+                continue
+        assert out.iters[j] == k_exact, (t, out.iters[j], k_exact)
+        assert out.grad_calls[j] == k_exact and out.epochs[j] is None  # not a finite sum
+        checked += 1
+    assert checked >= 4
+    # fingerprint: the measure at iterations 1, 2, 4, ...; rel 1e-9 covers accumulated round-off
+    for i, v in enumerate(out.fingerprint):
+        assert v == pytest.approx(r[2**i], rel=1e-9, abs=1e-300)
+    assert out.iterations_run == max(k for k in out.iters if k is not None)
+    assert out.status == ("reached" if all(k is not None for k in out.iters) else "partial")
+
+
+def test_dist_and_gradnorm_crossings_equal_the_closed_form() -> None:
+    q = Quadratic(eigenvalues=[0.2, 0.7, 1.0, 3.0], seed=2)
+    lam, lr = q.eigenvalues, 0.5 / 3.0
+    e0 = q.initial_point() - q.x_star
+    for measure, weight in (("dist", np.ones_like(lam)), ("gradnorm", lam**2)):
+        # |e_k|^2 (dist) or |lam e_k|^2 (gradnorm), per mode (1 - lr lam)^(2k) times the start
+        def rel(k: int) -> float:
+            return math.sqrt(np.sum(weight * (1 - lr * lam) ** (2 * k) * e0**2) / np.sum(weight * e0**2))
+
+        targets = [1e-1, 1e-3, 1e-5]
+        out = monitored_pass(q, faulty_rules.PlainGD(lr=lr), x_star=q.x_star, f_star=0.0, targets=targets,
+                             budget=2000, measure=measure)
+        for j, t in enumerate(targets):
+            assert out.iters[j] == next(k for k in range(2001) if rel(k) <= t)
+
+
+def test_budget_and_partial_status() -> None:
+    q = Quadratic(eigenvalues=[0.01, 1.0], seed=1)
+    out = monitored_pass(q, faulty_rules.PlainGD(lr=1.0), x_star=q.x_star, f_star=0.0, targets=[0.5, 1e-12], budget=50)
+    assert out.status == "partial" and out.iters[1] is None and out.iterations_run == 50
+    out = monitored_pass(q, faulty_rules.PlainGD(lr=1e-9), x_star=q.x_star, f_star=0.0, targets=[0.5], budget=20)
+    assert out.status == "budget" and out.iters == (None,)
+    assert aggregate_status(["reached", "partial"]) == "partial"
+    assert aggregate_status(["reached", "timeout", "error"]) == "error"
+    assert aggregate_status(["budget", "budget"]) == "budget"
+
+
+def test_minibatch_counts_gradients_and_epochs(lsq) -> None:
+    problem = lsq.build()
+    opt = certified_optimum(lsq)
+    out = monitored_pass(problem, faulty_rules.PlainGD(lr=0.2), x_star=opt.x_star, f_star=opt.f_star,
+                         targets=[0.5, 0.1], budget=500, oracle=OracleSpec("minibatch", 50, True),
+                         problem_key=lsq.problem_hash(), seed=3)
+    n = problem.n_samples
+    for k, calls, ep in zip(out.iters, out.grad_calls, out.epochs):
+        assert k is not None and calls == k
+        assert ep == pytest.approx(k * 50 / n, rel=1e-15)  # B samples per step, exactly
+
+
+# -- the theory bound over the catalogue -----------------------------------------------
+def test_measured_iterations_never_exceed_the_theory_bound(catalogue) -> None:
+    instances = [i for i in select(catalogue, None, tier="small") if i.family in ("quadratic", "least_squares", "ridge")]
+    for inst in instances:
+        certified_optimum(inst)
+    cases = [Case(i, parse_rule(r)) for i in instances for r in ("gd", "heavy_ball", "nesterov_sc")]
+    results = run_cases(cases, jobs=2, timing=False, progress=False)
+    with_bound = 0
+    for r in results:
+        assert r.status == "reached", (r.case.key(), r.status)
+        for j, b in enumerate(r.theory_bound):
+            if b is not None:
+                with_bound += 1
+                assert r.outcomes[0].iters[j] <= b, (r.case.key(), j, r.outcomes[0].iters[j], b)
+        assert not any(r.bound_violated())
+    # every quadratic-family case with its textbook parameters gets a bound for every target
+    assert with_bound == sum(len(r.case.run_targets) for r in results)
+
+
+# -- determinism --------------------------------------------------------------------------
+def _fingerprints(results):
+    return [(r.case.key(), r.status, [(o.seed, o.iters, o.grad_calls, o.epochs, o.fingerprint, o.final_measure)
+                                      for o in r.outcomes]) for r in results]
+
+
+def test_identical_across_reruns_and_job_counts(quad, lsq) -> None:
+    cases = [Case(quad, parse_rule(r)) for r in ("gd", "heavy_ball", "adam")]
+    cases += [Case(lsq, parse_rule("gd", ["lr=0.3"]), "minibatch", 25, replace, (0, 1, 2), budget=300)
+              for replace in (True, False)]
+    a = run_cases(cases, jobs=1, timing=False, progress=False)
+    b = run_cases(cases, jobs=2, timing=False, progress=False)
+    c = run_cases(cases, jobs=2, timing=False, progress=False)
+    assert _fingerprints(a) == _fingerprints(b) == _fingerprints(c)
+    # different seeds draw different minibatches (the stochastic cases are really stochastic)
+    fm = [o.fingerprint for o in a[3].outcomes]
+    assert fm[0] != fm[1]
+
+
+# -- containment of misbehaving rules ----------------------------------------------------------
+def test_raising_nan_hanging_and_contract_breaking_rules_are_contained(quad) -> None:
+    spec = lambda name: parse_rule(f"faulty_rules:{name}")  # noqa: E731
+    cases = [Case(quad, spec(n)) for n in ("Raiser", "NaNer", "Hanger", "WrongShape")]
+    cases.append(Case(quad, parse_rule("gd")))
+    results = run_cases(cases, jobs=2, timing=True, repeats=2, timeout=1.0, progress=False)
+    status = {r.case.rule.name.split(":")[1] if ":" in r.case.rule.name else r.case.rule.name: r for r in results}
+    raised = status["Raiser"].outcomes[0]
+    assert raised.status == "error" and "planted failure" in raised.error and "Traceback" in raised.error
+    assert raised.iterations_run == 2  # steps 1 and 2 ran, step 3 raised
+    assert status["NaNer"].status == "diverged" and status["NaNer"].outcomes[0].iterations_run == 3
+    assert status["Hanger"].status == "timeout" and "worker terminated" in status["Hanger"].outcomes[0].error
+    assert status["WrongShape"].status == "error" and "shape" in status["WrongShape"].outcomes[0].error
+    good = status["gd"]
+    assert good.status == "reached"
+    o = good.outcomes[0]
+    assert all(t is not None and t > 0 for t in o.time_to_target) and o.time_per_step > 0
+    # time to a later target is not shorter than to an earlier one (same replays, cumulative)
+    assert list(o.time_to_target) == sorted(o.time_to_target)
+    # broken cases get no replay
+    assert status["Raiser"].outcomes[0].time_to_target == ()
+
+
+def test_replay_seconds_and_round_trip(quad) -> None:
+    case = Case(quad, parse_rule("gd"))
+    [res] = run_cases([case], jobs=1, timing=True, repeats=3, progress=False)
+    k = res.outcomes[0].iters[-1]
+    assert replay_seconds(case, res.hyperparams, 0, k) > 0
+    again = result_from_dict(case, result_to_dict(res))
+    assert again == res
+    df = to_frame([res])
+    assert len(df) == len(case.run_targets) and list(df.iterations) == list(res.outcomes[0].iters)
