@@ -22,6 +22,9 @@ from benchsuite.errors import UserError
 COMMANDS: dict[str, str] = {
     "run": "run update rules on catalogue problems: iterations, gradient calls and wall time to targets",
     "history": "query the history of recorded runs",
+    "baseline": "record a rule's results on chosen problems as a baseline file for the gate",
+    "gate": "rerun a baseline's cases with a candidate rule and pass or fail it (exit 0/1)",
+    "compare": "measure the speed-up of rule B over rule A (or one rule at two git revisions, or two saved runs)",
 }
 
 

@@ -42,6 +42,7 @@ import subprocess
 import sys
 import tempfile
 import traceback
+import warnings
 from collections.abc import Mapping, Sequence
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
@@ -168,7 +169,7 @@ def ratio_interval(
     times_a: Sequence[float], times_b: Sequence[float], *, seed: int = 0, n_resamples: int = 4999
 ) -> tuple[float, tuple[float, float]]:
     """Ratio B/A and its 95 % paired bootstrap interval (see the module docstring)."""
-    from scipy.stats import bootstrap
+    from scipy.stats import DegenerateDataWarning, bootstrap
 
     d = np.log(np.asarray(times_b, float)) - np.log(np.asarray(times_a, float))
     if d.size < 2:
@@ -176,9 +177,12 @@ def ratio_interval(
     est = float(_trimmed(d))
     if np.ptp(d) == 0.0:
         return math.exp(est), (math.exp(est), math.exp(est))
-    res = bootstrap(
-        (d,), _trimmed, confidence_level=CONFIDENCE, n_resamples=n_resamples, method="BCa", rng=np.random.default_rng(seed)
-    )
+    with warnings.catch_warnings():  # a degenerate BCa interval is handled below
+        warnings.simplefilter("ignore", DegenerateDataWarning)
+        res = bootstrap(
+            (d,), _trimmed, confidence_level=CONFIDENCE, n_resamples=n_resamples, method="BCa",
+            rng=np.random.default_rng(seed),
+        )
     lo, hi = res.confidence_interval
     if not (math.isfinite(lo) and math.isfinite(hi)):  # BCa degenerate: fall back to percentile
         res = bootstrap(
@@ -459,7 +463,7 @@ def compare(
     oracle: str = "full",
     batch: int | None = None,
     seed: int = 0,
-    repeats: int = 21,
+    repeats: int = 31,
     jobs: int | None = None,
     catalogue_paths: Sequence[str | Path] = (),
     cwd: str | Path | None = None,

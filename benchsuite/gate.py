@@ -376,7 +376,8 @@ def run_gate(
     catalogue = load_catalogue(list(catalogue_paths) or None)
     check_definitions(baseline, catalogue)
     cases = gate_cases(baseline, rule, overrides, catalogue)
-    results = run_cases(cases, jobs=jobs, timing=False, timeout=timeout, progress=False)
+    limits = {} if timeout is None else {"timeout": timeout}
+    results = run_cases(cases, jobs=jobs, timing=False, progress=False, **limits)
     candidates = [record_from_result(r) for r in results]
     label = cases[0].rule.label if cases else rule
     if overrides:

@@ -146,3 +146,113 @@ def test_deterministic_rule_law(b: int, extra: int) -> None:
     base = case_record(iters_per_seed=[(b, b)])
     v = judge_case(base, with_iters(base, [(b + extra, b + extra)]))
     assert (v.verdict == "fail") == (extra > max(1, math.ceil(0.01 * b)))
+
+
+# ------------------------------------------------------------------------------
+# Self-validation on real runs: the gate fails deliberately broken rules
+# (tests/broken_rules.py) against the correct rule's baseline, and passes clean
+# reruns, correct re-implementations and reruns with another --jobs.
+import shutil
+from pathlib import Path
+
+from benchsuite.baseline import load_baseline, make_baseline, write_baseline
+from benchsuite.gate import run_gate
+
+REPO = Path(__file__).resolve().parents[1]
+EXTRA = REPO / "examples" / "kestrel" / "problems.toml"  # quad-small-gradients-kappa10-d10
+
+#: base rule -> (hyperparameters, problems). Chosen so that each breakage shows:
+#: Adam at lr = 0.1 converges in 30-170 steps, so the early-step errors (bias
+#: correction, step counter) move the crossings by several iterations; the
+#: small-gradient quadratic exposes eps; heavy ball with its textbook
+#: parameters is at the edge of stability, where a wrong sign or a stale buffer
+#: diverges.
+BASELINES = {
+    "adam": ({"lr": 0.1}, "quad-diag-kappa10-d10,logreg-dense-500x50,quad-small-gradients-kappa10-d10"),
+    "heavy_ball": ({}, "quad-diag-kappa100-d50,quad-small-gradients-kappa10-d10"),
+    "rmsprop": ({"lr": 0.01}, "quad-diag-kappa10-d10,quad-small-gradients-kappa10-d10"),
+    "gd": ({}, "quad-diag-kappa10-d10"),
+}
+
+#: broken variant -> the rule whose baseline it must fail
+BROKEN = {
+    "AdamNoBiasCorrection": "adam",  # missing bias correction
+    "AdamEpsInsideSqrt": "adam",  # eps inside the square root
+    "AdamBeta2AsBeta1": "adam",  # wrong decay constant
+    "AdamStepOffByOne": "adam",  # step counter off by one
+    "AdamLrSquared": "adam",  # learning rate applied twice
+    "HeavyBallSignError": "heavy_ball",  # sign error in the momentum term
+    "HeavyBallStaleBuffer": "heavy_ball",  # momentum buffer never updated
+    "RMSPropEpsInsideSqrt": "rmsprop",  # eps inside the square root
+    "RMSPropWrongDecay": "rmsprop",  # wrong decay constant (0.95 for 0.9)
+    "GDStepTwice": "gd",  # learning rate applied twice
+}
+CORRECT = {"TextbookAdam": "adam", "TextbookHeavyBall": "heavy_ball", "TextbookRMSProp": "rmsprop"}
+
+
+@pytest.fixture(scope="module")
+def recorded(tmp_path_factory) -> dict[str, Path]:
+    """Baselines of the built-in rules, written to files and read back by the gate.
+
+    Runs in a scratch folder holding a copy of the committed reference cache,
+    so the example instance's optimum is not written into the repository.
+    """
+    from benchsuite.catalogue import load_catalogue, select
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, run_cases
+
+    work = tmp_path_factory.mktemp("gate")
+    shutil.copytree(REPO / "results" / "reference", work / "results" / "reference")
+    with pytest.MonkeyPatch.context() as mp:
+        mp.chdir(work)
+        cat = load_catalogue([EXTRA])
+        out = {}
+        for rule, (params, problems) in BASELINES.items():
+            spec = parse_rule(rule, params)
+            cases = [Case(instance=i, rule=spec) for i in select(cat, problems, None)]
+            results = run_cases(cases, jobs=2, timing=False, progress=False)
+            assert all(r.status == "reached" for r in results), [(r.case.key(), r.status) for r in results]
+            out[rule] = write_baseline(make_baseline(results, rule_label=spec.label), work / f"{rule}.json")
+        yield out
+
+
+def gate(recorded: dict[str, Path], base: str, rule: str, jobs: int = 1, **cfg):
+    return run_gate(load_baseline(recorded[base]), rule, config=GateConfig(**cfg), jobs=jobs, catalogue_paths=[EXTRA])
+
+
+@pytest.mark.parametrize("variant", sorted(BROKEN))
+def test_gate_fails_every_broken_variant(recorded, variant: str) -> None:
+    report = gate(recorded, BROKEN[variant], f"broken_rules:{variant}")
+    assert not report.passed, f"{variant} passed the gate:\n" + "\n".join(
+        f"{v.key}: {v.verdict} {v.notes}" for v in report.verdicts
+    )
+    assert all(v.reasons for v in report.failures)
+
+
+@pytest.mark.parametrize("rule", sorted(BASELINES))
+def test_clean_rerun_passes_with_any_jobs(recorded, rule: str) -> None:
+    for jobs in (1, 2):
+        report = gate(recorded, rule, rule, jobs=jobs, exact=True)
+        assert report.passed and not report.improvements, report.summary()
+        # identical iteration counts, not merely within the slack
+        assert all(t.outcome == "same" and t.baseline == t.candidate for v in report.verdicts for t in v.targets)
+
+
+@pytest.mark.parametrize("variant", sorted(CORRECT))
+def test_correct_reimplementation_passes_even_exact(recorded, variant: str) -> None:
+    """An independent plain-numpy rule differs from the built-in only by round-off."""
+    report = gate(recorded, CORRECT[variant], f"broken_rules:{variant}", exact=True)
+    assert report.passed, [v.reasons for v in report.failures]
+
+
+def test_param_override_is_used(recorded) -> None:
+    """--param replaces a recorded hyperparameter: adam at lr 0.01 is far slower than at 0.1."""
+    report = run_gate(load_baseline(recorded["adam"]), "adam", ["lr=0.01"], catalogue_paths=[EXTRA], jobs=1)
+    assert not report.passed and "lr=0.01" in report.candidate_rule
+
+
+def test_changed_definition_is_a_configuration_error(recorded, tmp_path: Path) -> None:
+    changed = tmp_path / "problems.toml"
+    changed.write_text(EXTRA.read_text().replace("seed = 1", "seed = 2"))
+    with pytest.raises(UserError, match="changed since the baseline was recorded: quad-small-gradients-kappa10-d10"):
+        run_gate(load_baseline(recorded["adam"]), "adam", catalogue_paths=[changed])

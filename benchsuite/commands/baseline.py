@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-HELP = "record a rule's results on chosen problems as a baseline file for the gate"
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 
-HELP = "measure the speed-up of rule B over rule A (or one rule at two git revisions, or two saved runs)"
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -20,7 +19,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--tier", default="small", help="tier for globs and the default selection (default: small)")
     p.add_argument("--catalogue", action="append", default=[], metavar="PATH", help="extra catalogue file or folder")
     p.add_argument("--batch", type=int, default=None, help="minibatch size (default: full gradient)")
-    p.add_argument("--repeats", type=int, default=21, help="timed replay pairs per case (default 21)")
+    p.add_argument("--repeats", type=int, default=31, help="timed replay pairs per case (default 31)")
     p.add_argument("--jobs", type=int, default=None, help="worker processes for the monitored passes")
     p.add_argument("--markdown", metavar="FILE", help="write the comparison as Markdown")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 
-HELP = "rerun a baseline's cases with a candidate rule and pass or fail it (exit 0/1)"
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
