@@ -1,0 +1,751 @@
+"""Certified optimum of a catalogue instance: independent routes, a certificate, a cache.
+
+An optimum is *certified* when at least two independent routes reach it and
+agree within a stated tolerance (or one route and a published value agree).
+The routes, chosen by what the family provides:
+
+* ``closed-form``: ``problem.closed_form()`` (a direct solve, exact up to
+  round-off);
+* residual families (``f = sum r_i^2``): ``scipy.optimize.least_squares`` with
+  the exact Jacobian, method ``trf`` and, independently, method ``lm``
+  (MINPACK's Levenberg-Marquardt), both at ``xtol = ftol = gtol = 1e-15``;
+* other families: L-BFGS-B with tight tolerances, then a Newton polish with
+  ``trust-krylov`` when the family gives ``hessp`` (the gradient norm falls to
+  round-off); when no other route exists, a second, Newton-type or conjugate
+  gradient run from ``x0``;
+* ``cvxpy``: every convex family with ``cvxpy_objective`` is solved by the
+  Clarabel interior-point solver (SCS only when Clarabel fails, and the route
+  says so), with the solver status and the duality gap ``|p - d|``;
+* a published value (``problem.published()``) is compared by the LRE
+  (:func:`benchsuite.strd.lre`) per parameter and for ``f``.
+
+Non-convex problems: the certified minimum is the published one when the
+family gives it (confirmed by the scipy routes from the instance's start, or
+else from the published point, which ``how`` says); otherwise the best of
+several seeded starts, certified when at least two starts reach it.
+
+Agreement (all relative, ``S_f = max(|f*|, f(x0) - f*)`` and
+``S_x = max(||x*||, ||x0 - x*||)``: the scales of the runner's relative
+measures): each route has an accuracy ``eps_f`` in ``f`` (:data:`EPS_F`); two
+routes agree when ``|f_a - f_b| <= max(eps_a, eps_b) S_f`` and
+``||x_a - x_b|| <= sqrt(max(eps_a, eps_b) * kappa) S_x``. The ``x`` bound is
+the strong-convexity inequality ``||x - x*||^2 <= (2/mu)(f - f*)`` combined
+with ``f(x0) - f* <= (L/2)||x0 - x*||^2``: a relative error ``eps`` in ``f``
+allows a relative error ``sqrt(eps * L/mu)`` in ``x``. Without a known
+``kappa`` the ``x`` tolerance is :data:`X_TOL_UNKNOWN_KAPPA`.
+
+Cache: ``<cache_dir or ./results/reference>/<name>-<key12>.json``, where the
+key hashes the instance's ``problem_hash``, the content of any file its
+parameters name, the versions of numpy / scipy / cvxpy / Clarabel / SCS and
+the certificate format. Plain JSON (floats by ``repr``, exact round trip);
+``x*`` of more than :data:`NPZ_MIN_DIM` coordinates goes to an ``.npz``
+(``allow_pickle=False``) beside it. Writes are atomic. A cached entry is
+checked on load (``f(x*)`` recomputed) and recomputed when it is corrupt or
+stale.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from importlib import metadata
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from benchsuite.problem import Constants, Problem, Published, ResidualProblem
+
+if TYPE_CHECKING:
+    from benchsuite.catalogue import Instance
+
+__all__ = [
+    "EPS_F",
+    "Optimum",
+    "Route",
+    "cache_path",
+    "cached_entry",
+    "certified_optimum",
+    "default_cache_dir",
+]
+
+FORMAT = 1
+#: relative accuracy in f claimed by each kind of route (see the module docstring)
+EPS_F: dict[str, float] = {
+    # direct solve: backward stable; f at the solution is exact to a few ulps of S_f
+    "exact": 1e-12,
+    # iterative scipy codes run until the gradient is at round-off level; 1e-10
+    # leaves two decades over the ulp-level noise of f evaluated near f*
+    "scipy": 1e-10,
+    # Clarabel's default tolerances: gap (abs and rel) 1e-8, feasibility 1e-8;
+    # cvxpy's reformulation rescales the objective, so one decade of margin
+    "cvxpy": 1e-7,
+    # SCS (first-order conic solver) run at eps_abs = eps_rel = 1e-9, one decade lower accuracy
+    "scs": 1e-6,
+}
+#: relative x tolerance when kappa is unknown (non-convex or not derived):
+#: independent codes at a regular minimum agree to ~1e-9 or better in practice;
+#: 1e-6 is common practice, no source
+X_TOL_UNKNOWN_KAPPA = 1e-6
+#: LRE a published value must reach (NIST's certified values carry 10-11
+#: digits; LRE >= 6 is the level the project asks of every StRD file); a value
+#: printed with k significant digits is asked only k - 1 (its own rounding)
+LRE_MIN = 6.0
+#: number of starts (the instance's x0 plus seeded perturbations) for non-convex
+#: problems without a published minimum
+N_STARTS = 5
+#: x* with more coordinates than this is stored in an .npz beside the JSON
+#: (keeps the committed JSON files small and readable)
+NPZ_MIN_DIM = 2000
+#: each route's own x is stored in the JSON only up to this dimension (for audit)
+ROUTE_X_MAX_DIM = 100
+#: an exact route is preferred to one with a smaller gradient norm unless that
+#: is more than this factor smaller (gradient norms at round-off level differ
+#: by small factors from evaluation noise alone)
+EXACT_TIE_FACTOR = 4.0
+_PACKAGES = ("numpy", "scipy", "cvxpy", "clarabel", "scs")
+
+
+@dataclass(frozen=True)
+class Route:
+    """One independent way to the optimum and what it reached."""
+
+    method: str
+    f: float
+    x: tuple[float, ...]
+    status: str
+    grad_norm: float
+    seconds: float
+    duality_gap: float | None = None
+    ok: bool = True  # finished without error and with a success status
+    kind: str = "scipy"  # accuracy class, a key of EPS_F
+
+
+@dataclass(frozen=True)
+class Optimum:
+    """The certified optimum of an instance and its certificate."""
+
+    name: str
+    f_star: float
+    x_star: np.ndarray
+    grad_norm: float
+    routes: tuple[Route, ...]
+    agreement_digits: float
+    certified: bool
+    how: str
+    published: Published | None
+    lre: dict[str, float] | None
+    reason: str = ""  # why not certified (empty when certified)
+    f0: float = math.nan  # f(x0), the scale of relative suboptimality
+    dist_bound: float | None = None  # ||x* - x_true|| <= grad_norm / mu (strongly convex, mu known)
+    tolerances: dict[str, float] = field(default_factory=dict)
+    facts: dict[str, Any] = field(default_factory=dict)  # dim, n_samples, constants, convex (for listings)
+    versions: dict[str, str] = field(default_factory=dict)
+    from_cache: bool = False
+
+    @property
+    def methods(self) -> list[str]:
+        """The routes that reached the optimum."""
+        return [r.method for r in self.routes if r.ok]
+
+
+# -- cache location and key ----------------------------------------------------
+def default_cache_dir() -> Path:
+    return Path("results") / "reference"
+
+
+def solver_versions() -> dict[str, str]:
+    """Versions of the numerical packages (read from metadata, nothing imported)."""
+    out = {}
+    for name in _PACKAGES:
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = "absent"
+    return out
+
+
+def _file_digests(instance: Instance) -> dict[str, str]:
+    out = {}
+    for key, value in instance.params:
+        if isinstance(value, str) and len(value) < 4096 and os.path.isfile(value):
+            out[key] = hashlib.sha256(Path(value).read_bytes()).hexdigest()
+    return out
+
+
+def cache_key(instance: Instance) -> str:
+    payload = {
+        "format": FORMAT,
+        "problem": instance.problem_hash(),
+        "files": _file_digests(instance),
+        "versions": solver_versions(),
+    }
+    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
+
+
+def cache_path(instance: Instance, cache_dir: Path | None = None) -> Path:
+    safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in instance.name)
+    return Path(cache_dir or default_cache_dir()) / f"{safe}-{cache_key(instance)[:12]}.json"
+
+
+# -- small numerical helpers -----------------------------------------------------
+def _norm(v: np.ndarray) -> float:
+    return float(np.linalg.norm(v))
+
+
+def _grad_norm(problem: Problem, x: np.ndarray) -> float:
+    g = problem.grad(np.array(x, dtype=np.float64))
+    return _norm(g) if np.all(np.isfinite(g)) else math.inf
+
+
+def _overrides(problem: Problem, name: str) -> bool:
+    return getattr(type(problem), name) is not getattr(Problem, name)
+
+
+def _make_route(
+    problem: Problem, method: str, x: np.ndarray | None, status: str, ok: bool, seconds: float, kind: str,
+    duality_gap: float | None = None,
+) -> Route:
+    if x is None or not np.all(np.isfinite(x)):
+        return Route(method, math.nan, (), status, math.inf, seconds, duality_gap, False, kind)
+    x = np.asarray(x, dtype=np.float64)
+    f = float(problem.value(x))
+    return Route(method, f, tuple(float(v) for v in x), status, _grad_norm(problem, x), seconds, duality_gap,
+                 ok and math.isfinite(f), kind)
+
+
+def _failed(method: str, kind: str, exc: BaseException, seconds: float) -> Route:
+    msg = str(exc).splitlines()[0] if str(exc) else ""
+    return Route(method, math.nan, (), f"error: {type(exc).__name__}: {msg}"[:200], math.inf, seconds, None, False, kind)
+
+
+# -- the routes --------------------------------------------------------------------
+def _route_closed_form(problem: Problem) -> Route | None:
+    if not _overrides(problem, "closed_form"):
+        return None
+    t = time.perf_counter()
+    try:
+        x = problem.closed_form()
+    except Exception as exc:  # a family bug is reported as a failed route, not a crash
+        return _failed("closed-form", "exact", exc, time.perf_counter() - t)
+    if x is None:
+        return None
+    return _make_route(problem, "closed-form", x, "exact direct solve", True, time.perf_counter() - t, "exact")
+
+
+def _route_least_squares(problem: ResidualProblem, x0: np.ndarray, method: str) -> Route:
+    """scipy least_squares (trf or lm) with the exact Jacobian, at 1e-15 tolerances."""
+    from scipy.optimize import least_squares
+
+    label = f"scipy least_squares {method}"
+    t = time.perf_counter()
+    try:
+        res = least_squares(
+            problem.residuals, x0, jac=problem.jacobian, method=method,
+            xtol=1e-15, ftol=1e-15, gtol=1e-15, x_scale="jac", max_nfev=20000 * max(1, problem.dim),
+        )
+    except Exception as exc:  # e.g. lm needs m >= n
+        return _failed(label, "scipy", exc, time.perf_counter() - t)
+    status = f"status {res.status}: {res.message}"
+    return _make_route(problem, label, res.x, status, res.status > 0, time.perf_counter() - t, "scipy")
+
+
+def _fun(problem: Problem) -> Callable[[np.ndarray], tuple[float, np.ndarray]]:
+    def fun(x: np.ndarray) -> tuple[float, np.ndarray]:
+        f, g = problem.value_and_grad(x)
+        return float(f), np.array(g, dtype=np.float64)
+
+    return fun
+
+
+def _newton_polish(problem: Problem, x: np.ndarray, max_steps: int = 8) -> tuple[np.ndarray, int]:
+    """Newton steps ``H s = -g`` solved by CG with ``hessp``, kept while ``||g||`` falls.
+
+    Near a minimum, trust-region codes reject steps because the predicted
+    decrease in ``f`` is below the round-off of ``f`` itself; judging a step by
+    the gradient norm (and ``f`` not rising beyond round-off) takes the
+    gradient down to round-off level in one or two steps.
+    """
+    from scipy.sparse.linalg import LinearOperator, cg
+
+    f, g = _fun(problem)(x)
+    gn = _norm(g)
+    steps = 0
+    for _ in range(max_steps):
+        if gn == 0:
+            break
+        xk = x
+        H = LinearOperator((problem.dim, problem.dim), matvec=lambda v: np.asarray(problem.hessp(xk, v), float),
+                           dtype=np.float64)
+        s, _info = cg(H, -g, rtol=1e-14, atol=0.0, maxiter=min(10 * problem.dim, 5000))
+        if not np.all(np.isfinite(s)):
+            break
+        fn, gnew = _fun(problem)(x + s)
+        gnn = _norm(gnew)
+        if not (gnn < gn and fn <= f + 1e-12 * max(1.0, abs(f))):
+            break
+        x, f, g, gn = x + s, fn, gnew, gnn
+        steps += 1
+    return x, steps
+
+
+def _polish(problem: Problem, x: np.ndarray, status: str) -> tuple[np.ndarray, str]:
+    if not _overrides(problem, "hessp") or not np.all(np.isfinite(x)):
+        return x, status
+    xp, steps = _newton_polish(problem, x)
+    return xp, f"{status}; Newton polish: {steps} step(s)"
+
+
+def _route_lbfgs(problem: Problem, x0: np.ndarray) -> Route:
+    """L-BFGS-B to a tight tolerance, then the Newton polish when the family has ``hessp``."""
+    from scipy.optimize import minimize
+
+    label = "scipy L-BFGS-B + Newton polish" if _overrides(problem, "hessp") else "scipy L-BFGS-B"
+    t = time.perf_counter()
+    try:
+        g0 = max(1.0, float(np.max(np.abs(problem.grad(x0)))))
+        # with hessp the Newton polish takes the gradient from 1e-10 to round-off in a step or two
+        gtol = (1e-10 if _overrides(problem, "hessp") else 1e-14) * g0
+        res = minimize(_fun(problem), x0, jac=True, method="L-BFGS-B",
+                       options={"ftol": 1e-16, "gtol": gtol, "maxiter": 100000, "maxfun": 200000, "maxcor": 30})
+        x, status = _polish(problem, res.x, f"L-BFGS-B: {res.message}")
+    except Exception as exc:
+        return _failed(label, "scipy", exc, time.perf_counter() - t)
+    # L-BFGS-B stops with "ABNORMAL" when round-off blocks the last line search;
+    # the gradient norm, compared between routes, is the judge of the point
+    return _make_route(problem, label, x, status, True, time.perf_counter() - t, "scipy")
+
+
+def _route_second_smooth(problem: Problem, x0: np.ndarray) -> Route:
+    """An independent smooth route from x0: trust-ncg with hessp (then the polish), else nonlinear CG."""
+    from scipy.optimize import minimize
+
+    t = time.perf_counter()
+    g0 = max(1.0, float(np.max(np.abs(problem.grad(x0)))))
+    if _overrides(problem, "hessp"):
+        label = "scipy trust-ncg + Newton polish"
+        kw: dict[str, Any] = {"hessp": problem.hessp, "method": "trust-ncg",
+                              "options": {"gtol": 1e-14 * g0, "maxiter": 5000}}
+    else:
+        label = "scipy CG"
+        kw = {"method": "CG", "options": {"gtol": 1e-14 * g0, "maxiter": 200000}}
+    try:
+        res = minimize(_fun(problem), x0, jac=True, **kw)
+        x, status = _polish(problem, res.x, str(res.message))
+    except Exception as exc:
+        return _failed(label, "scipy", exc, time.perf_counter() - t)
+    return _make_route(problem, label, x, status, True, time.perf_counter() - t, "scipy")
+
+
+def _route_cvxpy(problem: Problem, x0: np.ndarray) -> tuple[Route | None, str]:
+    """cvxpy with Clarabel (SCS if Clarabel fails). Returns the route and a formulation note."""
+    if not (problem.convex and _overrides(problem, "cvxpy_objective")):
+        return None, ""
+    import cvxpy as cp
+
+    t = time.perf_counter()
+    try:
+        var = cp.Variable(problem.dim)
+        obj = problem.cvxpy_objective(var)
+        if obj is None:
+            return None, ""
+        prob = cp.Problem(cp.Minimize(obj))
+    except Exception as exc:
+        return _failed("cvxpy", "cvxpy", exc, time.perf_counter() - t), ""
+    method, kind, gap, status, clarabel_note = "cvxpy/CLARABEL", "cvxpy", None, "", ""
+    try:
+        # the raw Clarabel solution carries the primal and dual objective values
+        data, chain, inverse = prob.get_problem_data(cp.CLARABEL, solver_opts={})
+        raw = chain.solver.solve_via_data(data, False, False, {})
+        prob.unpack_results(raw, chain, inverse)
+        status = f"{prob.status} (Clarabel {raw.status}, {raw.iterations} iterations)"
+        gap = abs(float(raw.obj_val) - float(raw.obj_val_dual))
+        if prob.status != "optimal":
+            clarabel_note = f"Clarabel: {raw.status}"
+    except Exception as exc:
+        clarabel_note = f"Clarabel failed: {type(exc).__name__}: {exc}"
+    if clarabel_note:
+        method, kind = f"cvxpy/SCS (fallback; {clarabel_note})", "scs"
+        try:
+            prob.solve(solver=cp.SCS, eps_abs=1e-9, eps_rel=1e-9, max_iters=200000)
+            info = prob.solver_stats.extra_stats or {}
+            status = f"{prob.status} (SCS {info.get('status', '')}, {prob.solver_stats.num_iters} iterations)"
+            gap = abs(float(info["gap"])) if "gap" in info else None
+        except Exception as exc:
+            return _failed(method, kind, exc, time.perf_counter() - t), ""
+    seconds = time.perf_counter() - t
+    if var.value is None:
+        return Route(method, math.nan, (), status, math.inf, seconds, gap, False, kind), ""
+    route = _make_route(problem, method, var.value, status, prob.status == "optimal", seconds, kind, gap)
+    # the cvxpy expression must be the family's objective: compare its value with f(x)
+    note = ""
+    if route.ok and prob.value is not None:
+        diff = abs(float(prob.value) - route.f)
+        scale = max(abs(route.f), abs(float(problem.value(x0)) - route.f), np.finfo(float).tiny)
+        if diff > EPS_F[kind] * scale:
+            note = (f"cvxpy objective {float(prob.value)!r} differs from the family's f = {route.f!r} at the "
+                    f"cvxpy solution (relative {diff / scale:.1e}): cvxpy_objective does not match value()")
+    return route, note
+
+
+# -- agreement ---------------------------------------------------------------------
+def _kappa(constants: Constants) -> float | None:
+    if constants.L_kind == "unknown" or constants.mu_kind == "unknown":
+        return None
+    k = constants.kappa
+    return k if k is not None and math.isfinite(k) and k >= 1 else None
+
+
+def _pair_disagreement(a: Route, b: Route, s_f: float, s_x: float) -> tuple[float, float]:
+    rel_f = abs(a.f - b.f) / s_f
+    rel_x = _norm(np.asarray(a.x) - np.asarray(b.x)) / s_x
+    return rel_f, rel_x
+
+
+def _pair_tolerance(a: Route, b: Route, kappa: float | None) -> tuple[float, float]:
+    eps = max(EPS_F[a.kind], EPS_F[b.kind])
+    tol_x = math.sqrt(eps * kappa) if kappa is not None else max(X_TOL_UNKNOWN_KAPPA, math.sqrt(eps))
+    return eps, tol_x
+
+
+def _agreement(routes: list[Route], s_f: float, s_x: float, kappa: float | None) -> tuple[bool, float, str]:
+    """Whether all routes agree pairwise; the digits of the worst pair; the first failure."""
+    worst, first_fail = 0.0, ""
+    for i, a in enumerate(routes):
+        for b in routes[i + 1:]:
+            rf, rx = _pair_disagreement(a, b, s_f, s_x)
+            tf, tx = _pair_tolerance(a, b, kappa)
+            worst = max(worst, rf, rx)
+            if not first_fail and (rf > tf or rx > tx):
+                first_fail = (f"{a.method} and {b.method} disagree: relative f difference {rf:.1e} "
+                              f"(tolerance {tf:.0e}), relative x difference {rx:.1e} (tolerance {tx:.1e})")
+    digits = 16.0 if worst == 0 else min(16.0, -math.log10(worst))
+    return not first_fail, digits, first_fail
+
+
+def _digits_of(value: float) -> int | None:
+    """Significant digits of a published value as printed; None for an integer (exact)."""
+    if value == round(value):
+        return None
+    mant = repr(abs(value)).split("e")[0].replace(".", "").strip("0")
+    return len(mant)
+
+
+def _lre_table(x: np.ndarray, f: float, pub: Published) -> dict[str, float]:
+    from benchsuite.strd import lre
+
+    out: dict[str, float] = {}
+    if pub.x is not None:
+        for i, t in enumerate(pub.x):
+            out[f"b{i + 1}"] = float(lre(float(x[i]), float(t)))
+    out["f"] = float(lre(float(f), float(pub.f)))
+    params = [v for k, v in out.items() if k != "f"]
+    out["min"] = min(params) if params else out["f"]
+    return out
+
+
+def _published_ok(x: np.ndarray, f: float, pub: Published) -> tuple[bool, dict[str, float], str]:
+    table = _lre_table(x, f, pub)
+    bad = []
+    values = list(pub.x or ()) + [pub.f]
+    keys = [f"b{i + 1}" for i in range(len(pub.x or ()))] + ["f"]
+    for key, t in zip(keys, values):
+        k = _digits_of(t)
+        need = LRE_MIN if k is None else min(LRE_MIN, k - 1)
+        if table[key] < need:
+            bad.append(f"{key} LRE {table[key]:.1f} < {need:g}")
+    return not bad, table, "; ".join(bad)
+
+
+def _choose(routes: list[Route]) -> Route:
+    best = min(routes, key=lambda r: r.grad_norm)
+    exact = [r for r in routes if r.kind == "exact"]
+    if exact and exact[0].grad_norm <= EXACT_TIE_FACTOR * best.grad_norm:
+        return exact[0]
+    return best
+
+
+# -- computing an optimum ------------------------------------------------------------
+def _smooth_routes(problem: Problem, x0: np.ndarray) -> list[Route]:
+    if isinstance(problem, ResidualProblem):
+        return [_route_least_squares(problem, x0, "trf"), _route_least_squares(problem, x0, "lm")]
+    return [_route_lbfgs(problem, x0)]
+
+
+def _multistart(problem: Problem, x0: np.ndarray) -> tuple[list[Route], str]:
+    """The primary route from x0 and N_STARTS - 1 seeded perturbed starts."""
+    rng = np.random.default_rng(0)
+    scale = max(1.0, _norm(x0) / math.sqrt(max(1, x0.size)))
+    routes = []
+    for k in range(N_STARTS):
+        start = x0 if k == 0 else x0 + scale * rng.standard_normal(x0.size)
+        r = _smooth_routes(problem, start)[0]
+        routes.append(Route(f"{r.method} from start {k}", r.f, r.x, r.status, r.grad_norm, r.seconds,
+                            r.duality_gap, r.ok, r.kind))
+    return routes, f"x0 and {N_STARTS - 1} starts x0 + {scale:.3g} N(0, I) (numpy default_rng(0))"
+
+
+def _compute(instance: Instance, problem: Problem) -> Optimum:
+    x0 = np.asarray(problem.initial_point(), dtype=np.float64)
+    f0 = float(problem.value(x0))
+    constants = problem.constants()
+    kappa = _kappa(constants)
+    pub = problem.published()
+    routes: list[Route] = []
+    notes: list[str] = []
+
+    cf = _route_closed_form(problem)
+    if cf is not None:
+        routes.append(cf)
+    cvx, cvx_note = _route_cvxpy(problem, x0)
+    if cvx_note:
+        notes.append(cvx_note)
+
+    how = ""
+    if problem.convex:
+        routes += _smooth_routes(problem, x0)
+        if cvx is not None:
+            routes.append(cvx)
+        if len([r for r in routes if r.ok]) < 2 and not isinstance(problem, ResidualProblem):
+            routes.append(_route_second_smooth(problem, x0))
+        how = "convex: unique minimum"
+    elif pub is not None:
+        routes += _smooth_routes(problem, x0)
+        if not isinstance(problem, ResidualProblem):
+            routes.append(_route_second_smooth(problem, x0))
+        how = f"non-convex: the published minimum ({pub.source})"
+    else:
+        starts, desc = _multistart(problem, x0)
+        how = f"non-convex: the best minimum over {N_STARTS} starts ({desc})"
+        ok = [r for r in starts if r.ok]
+        if ok:
+            best = min(ok, key=lambda r: r.f)
+            s_f = max(abs(best.f), f0 - best.f, np.finfo(float).tiny)
+            s_x = max(_norm(np.asarray(best.x)), _norm(x0 - np.asarray(best.x)), np.finfo(float).tiny)
+            reached = {id(r) for r in ok if _agreement([best, r], s_f, s_x, None)[0]}
+            how += f"; {len(reached)} of {N_STARTS} starts reached it"
+            # starts that ended elsewhere stay in the record, outside the agreement
+            starts = [r if (id(r) in reached or not r.ok) else
+                      Route(r.method, r.f, r.x, r.status + " (ended at another stationary point)", r.grad_norm,
+                            r.seconds, r.duality_gap, False, r.kind) for r in starts]
+        routes += starts
+    return _certify(instance, problem, routes, x0, f0, constants, kappa, pub, how, notes)
+
+
+def _certify(
+    instance: Instance, problem: Problem, routes: list[Route], x0: np.ndarray, f0: float,
+    constants: Constants, kappa: float | None, pub: Published | None, how: str, notes: list[str],
+) -> Optimum:
+    ok = [r for r in routes if r.ok]
+    reason = ""
+    lre_table: dict[str, float] | None = None
+    agree, digits = False, 0.0
+    if not ok:
+        reason = "no route succeeded: " + "; ".join(f"{r.method}: {r.status}" for r in routes)
+        chosen = None
+    else:
+        chosen = _choose(ok)
+        s_f = max(abs(chosen.f), f0 - chosen.f, np.finfo(float).tiny)
+        s_x = max(_norm(np.asarray(chosen.x)), _norm(x0 - np.asarray(chosen.x)), np.finfo(float).tiny)
+        agree, digits, fail = _agreement(ok, s_f, s_x, kappa)
+        if not agree:
+            reason = fail
+        if pub is not None:
+            pub_ok, lre_table, bad = _published_ok(np.asarray(chosen.x), chosen.f, pub)
+            if not pub_ok and pub.x is not None and not problem.convex:
+                # the standard start may lead elsewhere: run the routes from the published point
+                retry = _smooth_routes(problem, np.asarray(pub.x, dtype=np.float64))
+                retry = [Route(r.method + " from the published point", r.f, r.x, r.status, r.grad_norm,
+                               r.seconds, r.duality_gap, r.ok, r.kind) for r in retry]
+                rok = [r for r in retry if r.ok]
+                if rok:
+                    cand = _choose(rok)
+                    r_pub_ok, r_table, r_bad = _published_ok(np.asarray(cand.x), cand.f, pub)
+                    r_agree, r_digits, r_fail = _agreement(rok, s_f, s_x, kappa)
+                    if r_pub_ok:
+                        how += (f"; from the instance's start the routes reach f = {chosen.f!r}, so they "
+                                f"were run from the published point")
+                        routes = routes + retry
+                        ok, chosen, agree, digits, lre_table = rok, cand, r_agree, r_digits, r_table
+                        pub_ok, reason = True, r_fail
+                    else:
+                        bad += f" (from the published point as well: {r_bad})"
+            if not pub_ok:
+                reason = (reason + "; " if reason else "") + f"does not match the published value: {bad}"
+            elif len(ok) < 2:
+                how += "; one computed route, confirmed by the published value"
+        if len(ok) < 2 and pub is None:
+            reason = (reason + "; " if reason else "") + "only one route succeeded"
+    for n in notes:
+        reason = (reason + "; " if reason else "") + n
+    if chosen is None:
+        x_star, f_star, gnorm = np.full(problem.dim, np.nan), math.nan, math.inf
+    else:
+        x_star, f_star, gnorm = np.asarray(chosen.x, dtype=np.float64), chosen.f, chosen.grad_norm
+    dist_bound = None
+    if constants.mu and constants.mu_kind in ("exact", "bound") and problem.convex and math.isfinite(gnorm):
+        dist_bound = gnorm / constants.mu  # strong convexity: ||x - x_true|| <= ||grad f(x)|| / mu
+    tolerances = {"eps_f": max((EPS_F[r.kind] for r in ok), default=math.nan),
+                  "kappa": kappa if kappa is not None else math.nan}
+    if chosen is not None:
+        tolerances["x"] = _pair_tolerance(chosen, max(ok, key=lambda r: EPS_F[r.kind]), kappa)[1]
+    how = f"{how}; x* from {chosen.method} (smallest gradient norm)" if chosen is not None else how
+    return Optimum(
+        name=instance.name, f_star=f_star, x_star=x_star, grad_norm=gnorm, routes=tuple(routes),
+        agreement_digits=digits, certified=not reason, how=how, published=pub, lre=lre_table, reason=reason,
+        f0=f0, dist_bound=dist_bound, tolerances=tolerances, facts=_facts(problem, constants),
+        versions=solver_versions(),
+    )
+
+
+def _facts(problem: Problem, constants: Constants) -> dict[str, Any]:
+    return {
+        "family": problem.family, "dim": int(problem.dim), "n_samples": problem.n_samples,
+        "convex": bool(problem.convex), "L": constants.L, "mu": constants.mu, "L_kind": constants.L_kind,
+        "mu_kind": constants.mu_kind, "note": constants.note,
+    }
+
+
+# -- JSON (de)serialisation ------------------------------------------------------------
+def _num(v: float | None) -> float | str | None:
+    """Finite floats as JSON numbers (repr: exact round trip), others as strings."""
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else repr(v)
+
+
+def _unnum(v: Any) -> float | None:
+    return None if v is None else float(v)
+
+
+def _to_json(opt: Optimum, instance: Instance, key: str, npz_name: str | None) -> dict[str, Any]:
+    big = npz_name is not None
+    return {
+        "format": FORMAT, "name": opt.name, "family": instance.family, "params": dict(instance.params),
+        "problem_hash": instance.problem_hash(), "key": key, "versions": opt.versions,
+        "certified": opt.certified, "how": opt.how, "reason": opt.reason,
+        "f_star": _num(opt.f_star), "f0": _num(opt.f0), "grad_norm": _num(opt.grad_norm),
+        "dist_bound": _num(opt.dist_bound), "agreement_digits": _num(opt.agreement_digits),
+        "x_star": None if big else [_num(v) for v in opt.x_star], "x_star_npz": npz_name,
+        "tolerances": {k: _num(v) for k, v in opt.tolerances.items()}, "facts": opt.facts,
+        "routes": [
+            {"method": r.method, "f": _num(r.f), "x": [_num(v) for v in r.x] if len(r.x) <= ROUTE_X_MAX_DIM else None,
+             "status": r.status,
+             "grad_norm": _num(r.grad_norm), "seconds": r.seconds, "duality_gap": _num(r.duality_gap),
+             "ok": r.ok, "kind": r.kind}
+            for r in opt.routes
+        ],
+        "published": None if opt.published is None else {
+            "f": _num(opt.published.f),
+            "x": None if opt.published.x is None else [_num(v) for v in opt.published.x],
+            "source": opt.published.source, "note": opt.published.note,
+        },
+        "lre": None if opt.lre is None else {k: _num(v) for k, v in opt.lre.items()},
+    }
+
+
+def _from_json(doc: dict[str, Any], folder: Path) -> Optimum:
+    if doc.get("format") != FORMAT:
+        raise ValueError("unknown format")
+    if doc.get("x_star_npz"):
+        with np.load(folder / doc["x_star_npz"], allow_pickle=False) as z:
+            x_star = np.asarray(z["x_star"], dtype=np.float64)
+    else:
+        x_star = np.array([float(v) for v in doc["x_star"]], dtype=np.float64)
+    pub = doc["published"]
+    routes = tuple(
+        Route(r["method"], float(r["f"]), tuple(float(v) for v in (r["x"] or ())), r["status"],
+              float(r["grad_norm"]), float(r["seconds"]), _unnum(r["duality_gap"]), bool(r["ok"]), r["kind"])
+        for r in doc["routes"]
+    )
+    return Optimum(
+        name=doc["name"], f_star=float(doc["f_star"]), x_star=x_star, grad_norm=float(doc["grad_norm"]),
+        routes=routes, agreement_digits=float(doc["agreement_digits"]), certified=bool(doc["certified"]),
+        how=doc["how"], reason=doc["reason"],
+        published=None if pub is None else Published(
+            f=float(pub["f"]), x=None if pub["x"] is None else tuple(float(v) for v in pub["x"]),
+            source=pub["source"], note=pub.get("note", "")),
+        lre=None if doc["lre"] is None else {k: float(v) for k, v in doc["lre"].items()},
+        f0=float(doc["f0"]), dist_bound=_unnum(doc["dist_bound"]),
+        tolerances={k: float(v) for k, v in doc["tolerances"].items()}, facts=dict(doc["facts"]),
+        versions=dict(doc["versions"]), from_cache=True,
+    )
+
+
+def _atomic_write(path: Path, write: Callable[[Any], None], mode: str = "w") -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, mode) as fh:
+            write(fh)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def _save(opt: Optimum, instance: Instance, path: Path, key: str) -> None:
+    npz_name = None
+    if opt.x_star.size > NPZ_MIN_DIM:
+        npz_name = path.with_suffix(".npz").name
+        _atomic_write(path.with_suffix(".npz"), lambda fh: np.savez(fh, x_star=opt.x_star), mode="wb")
+    doc = _to_json(opt, instance, key, npz_name)
+    _atomic_write(path, lambda fh: (json.dump(doc, fh, indent=1), fh.write("\n")))
+
+
+def cached_entry(instance: Instance, cache_dir: Path | None = None) -> dict[str, Any] | None:
+    """The raw cached JSON of an instance (no problem built, nothing checked), or None."""
+    path = cache_path(instance, cache_dir)
+    try:
+        doc = json.loads(path.read_text())
+    except (OSError, ValueError):
+        return None
+    return doc if isinstance(doc, dict) and doc.get("key") == cache_key(instance) else None
+
+
+def _load(instance: Instance, problem: Problem | None, path: Path, key: str) -> Optimum | None:
+    """The cached optimum if the file is sound and f(x*) still matches; else None."""
+    try:
+        doc = json.loads(path.read_text())
+        if doc.get("key") != key:
+            return None
+        opt = _from_json(doc, path.parent)
+    except (OSError, ValueError, KeyError, TypeError, AttributeError):
+        return None  # corrupt or from another format: recompute
+    if opt.x_star.shape != (problem.dim,):
+        return None
+    if math.isfinite(opt.f_star):
+        f = float(problem.value(opt.x_star))
+        scale = max(abs(opt.f_star), opt.f0 - opt.f_star, np.finfo(float).tiny)
+        if not abs(f - opt.f_star) <= EPS_F["exact"] * scale:  # stale: the family's objective changed
+            return None
+    return opt
+
+
+def certified_optimum(
+    instance: Instance, *, cache_dir: Path | None = None, refresh: bool = False, problem: Problem | None = None
+) -> Optimum:
+    """The certified optimum of ``instance``, from the cache or computed (and cached).
+
+    ``problem`` may pass an already built float64 problem to save building it
+    again. ``refresh`` recomputes even when a cache entry exists.
+    """
+    key = cache_key(instance)
+    path = cache_path(instance, cache_dir)
+    if problem is None or problem.dtype != np.float64:
+        problem = instance.build()
+    if not refresh and path.exists():
+        opt = _load(instance, problem, path, key)
+        if opt is not None:
+            return opt
+    opt = _compute(instance, problem)
+    _save(opt, instance, path, key)
+    return opt
