@@ -75,7 +75,7 @@ __all__ = [
     "default_cache_dir",
 ]
 
-FORMAT = 1
+FORMAT = 2  # bump when the routes or the tolerances change: old entries are then recomputed
 #: relative accuracy in f claimed by each kind of route (see the module docstring)
 EPS_F: dict[str, float] = {
     # direct solve: backward stable; f at the solution is exact to a few ulps of S_f
@@ -157,7 +157,23 @@ class Optimum:
 
 # -- cache location and key ----------------------------------------------------
 def default_cache_dir() -> Path:
+    """Where new entries go: ``./results/reference``."""
     return Path("results") / "reference"
+
+
+def _lookup_dirs(cache_dir: Path | None) -> list[Path]:
+    """Folders searched for an entry: the given one; by default ``./results/reference``
+    and then the repository's committed ``results/reference`` (found next to the package)."""
+    if cache_dir is not None:
+        return [Path(cache_dir)]
+    import benchsuite
+
+    dirs = [default_cache_dir(), Path(benchsuite.__file__).resolve().parents[1] / "results" / "reference"]
+    out: list[Path] = []
+    for d in dirs:
+        if d.is_dir() and all(d.resolve() != o.resolve() for o in out):
+            out.append(d)
+    return out or [default_cache_dir()]
 
 
 def solver_versions() -> dict[str, str]:
@@ -703,12 +719,15 @@ def _save(opt: Optimum, instance: Instance, path: Path, key: str) -> None:
 
 def cached_entry(instance: Instance, cache_dir: Path | None = None) -> dict[str, Any] | None:
     """The raw cached JSON of an instance (no problem built, nothing checked), or None."""
-    path = cache_path(instance, cache_dir)
-    try:
-        doc = json.loads(path.read_text())
-    except (OSError, ValueError):
-        return None
-    return doc if isinstance(doc, dict) and doc.get("key") == cache_key(instance) else None
+    key = cache_key(instance)
+    for folder in _lookup_dirs(cache_dir):
+        try:
+            doc = json.loads(cache_path(instance, folder).read_text())
+        except (OSError, ValueError):
+            continue
+        if isinstance(doc, dict) and doc.get("key") == key:
+            return doc
+    return None
 
 
 def _load(instance: Instance, problem: Problem | None, path: Path, key: str) -> Optimum | None:
@@ -735,17 +754,22 @@ def certified_optimum(
 ) -> Optimum:
     """The certified optimum of ``instance``, from the cache or computed (and cached).
 
+    Without ``cache_dir`` an entry is looked up in ``./results/reference`` and
+    then in the repository's committed ``results/reference``; new entries are
+    written to ``./results/reference``.
+
     ``problem`` may pass an already built float64 problem to save building it
     again. ``refresh`` recomputes even when a cache entry exists.
     """
     key = cache_key(instance)
-    path = cache_path(instance, cache_dir)
     if problem is None or problem.dtype != np.float64:
         problem = instance.build()
-    if not refresh and path.exists():
-        opt = _load(instance, problem, path, key)
-        if opt is not None:
-            return opt
+    if not refresh:
+        for folder in _lookup_dirs(cache_dir):
+            path = cache_path(instance, folder)
+            opt = _load(instance, problem, path, key) if path.exists() else None
+            if opt is not None:
+                return opt
     opt = _compute(instance, problem)
-    _save(opt, instance, path, key)
+    _save(opt, instance, cache_path(instance, cache_dir), key)
     return opt
