@@ -20,6 +20,8 @@ from benchsuite.errors import UserError
 
 #: sub-command name -> one-line help. The module is benchsuite.commands.<name>.
 COMMANDS: dict[str, str] = {
+    "list": "list the catalogue: dimension, samples, L, mu, kappa, convexity, certified optimum cached",
+    "optimum": "compute (or load) the certified optimum of an instance or a NIST StRD file, with its certificate",
     "run": "run update rules on catalogue problems: iterations, gradient calls and wall time to targets",
     "history": "query the history of recorded runs",
     "baseline": "record a rule's results on chosen problems as a baseline file for the gate",
