@@ -101,16 +101,28 @@ class NistStrd(ResidualProblem):
         return Constants(note="non-convex nonlinear least squares: L and mu not derived (the Hessian varies with b)")
 
     def published(self) -> Published:
+        """The certified parameters and RSS as printed in the file.
+
+        The note flags a file whose certified parameters do not give its
+        certified RSS: ``f(b_cert) > 2 RSS + 1e-18 sum t(y)^2`` (the absolute
+        term covers an RSS at round-off level, as Lanczos1's 1.4e-25, where
+        parameters printed to 11 digits cannot reproduce it). The shipped
+        Roszman1 copy trips it: it prints b1 = 1.20196866396 for NIST's
+        0.20196866396.
+        """
         d = self.data
-        return Published(
-            f=d.rss,
-            x=d.certified,
-            source=f"NIST StRD {d.name}",
-            note=(
-                f"certified values from {Path(d.path).name}; f = residual sum of squares "
-                f"(residual SD {d.residual_sd:.10E}, {d.n_obs} observations)"
-            ),
+        note = (
+            f"certified values from {Path(d.path).name}; f = residual sum of squares "
+            f"(residual SD {d.residual_sd:.10E}, {d.n_obs} observations)"
         )
+        r = self._t - d.model_value(np.array(d.certified))
+        f_cert = float(r @ r)
+        if not f_cert <= 2.0 * d.rss + 1e-18 * float(self._t @ self._t):
+            note += (
+                f"; WARNING: the certified parameters give f = {f_cert:.6g}, not the certified "
+                f"{d.rss:.6g}: the file's certified block is inconsistent (misprint?)"
+            )
+        return Published(f=d.rss, x=d.certified, source=f"NIST StRD {d.name}", note=note)
 
     def describe(self) -> dict[str, Any]:
         d = self.data
