@@ -11,6 +11,12 @@ Both sides are measured in one run:
    ... so that a linear drift of the machine's speed cancels within every two
    pairs. Replays shorter than ``MIN_SAMPLE_SECONDS`` are repeated inside one
    sample so the clock's resolution and call overhead stay negligible.
+   Time is the replaying process's **CPU time** by default (``clock="cpu"``,
+   ``time.process_time``): for single-threaded code (BLAS is pinned to one
+   thread) it equals the wall time on an idle machine, and it is not
+   inflated when other processes compete for the cores, which on a shared
+   2-core machine cuts the spread of the paired log-ratios about threefold.
+   ``clock="wall"`` uses the runner's wall-clock ``replay_seconds`` instead.
 3. **Statistics.** Pair i gives the log-ratio ``d_i = log(t_B,i / t_A,i)``.
    The per-case estimate of the time ratio B/A is ``exp(T(d))`` where T is the
    10 % trimmed mean (robust to the odd replay that a busy machine slows down,
@@ -41,6 +47,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
+import time
 import traceback
 import warnings
 from collections.abc import Mapping, Sequence
@@ -66,10 +73,15 @@ __all__ = [
 ]
 
 #: a replay sample shorter than this is repeated within the sample
-MIN_SAMPLE_SECONDS = 0.005
+MIN_SAMPLE_SECONDS = 0.02
 #: proportion cut from each end for the trimmed mean of log-ratios
 TRIM = 0.1
 CONFIDENCE = 0.95
+#: how a replay is timed
+CLOCKS = {
+    "cpu": "process CPU time (time.process_time)",
+    "wall": "wall time (the runner's replay_seconds, time.perf_counter)",
+}
 
 
 @dataclass(frozen=True)
@@ -263,11 +275,36 @@ class _Engine:
             out.append(_Monitored(status=r.status, iters=tuple(o.iters), iterations_run=o.iterations_run, label=spec.label))
         return out
 
-    def replay(self, index: int, k: int, inner: int) -> float:
-        from benchsuite.runner import replay_seconds
+    def replay(self, index: int, k: int, inner: int, clock: str = "cpu") -> float:
+        """Seconds of ``inner`` uninstrumented replays of ``k`` steps (see ``CLOCKS``)."""
+        case, hyper, seed = self.cases[index], self.hyper[index], self.cases[index].seeds[0]
+        if clock == "wall":
+            from benchsuite.runner import replay_seconds
 
-        case = self.cases[index]
-        return sum(replay_seconds(case, self.hyper[index], case.seeds[0], k) for _ in range(inner))
+            return sum(replay_seconds(case, hyper, seed, k) for _ in range(inner))
+        return sum(_cpu_replay(case, hyper, seed, k) for _ in range(inner))
+
+
+def _cpu_replay(case: Any, hyperparams: Mapping[str, Any], seed: int, k: int) -> float:
+    """Process CPU seconds of one uninstrumented replay of ``k`` steps.
+
+    The same loop as the runner's timing replay (fresh rule, seeded gradient
+    oracle and start point built outside the timed region, BLAS pinned to one
+    thread), timed with ``time.process_time``.
+    """
+    from threadpoolctl import threadpool_limits
+
+    from benchsuite.runner import _built, _fresh
+
+    built = _built(case.instance, with_optimum=False)
+    rule, grad, x = _fresh(case, built, hyperparams, seed)
+    step = rule.step
+    with np.errstate(all="ignore"), threadpool_limits(limits=1):
+        t0 = time.process_time()
+        state = rule.init(x)
+        for _ in range(k):
+            x, state = step(x, grad(x), state)
+        return time.process_time() - t0
 
 
 class _LocalSide:
@@ -277,8 +314,8 @@ class _LocalSide:
     def setup(self, s: _Setup) -> list[_Monitored]:
         return self.engine.setup(s)
 
-    def replay(self, index: int, k: int, inner: int) -> float:
-        return self.engine.replay(index, k, inner)
+    def replay(self, index: int, k: int, inner: int, clock: str = "cpu") -> float:
+        return self.engine.replay(index, k, inner, clock)
 
     def close(self) -> None:
         pass
@@ -312,8 +349,8 @@ class _WorkerSide:
     def setup(self, s: _Setup) -> list[_Monitored]:
         return self._call("setup", s)
 
-    def replay(self, index: int, k: int, inner: int) -> float:
-        return self._call("replay", index, k, inner)
+    def replay(self, index: int, k: int, inner: int, clock: str = "cpu") -> float:
+        return self._call("replay", index, k, inner, clock)
 
     def close(self) -> None:
         if self.proc.poll() is None:
@@ -416,14 +453,15 @@ def _note(target: float | None, ka: int, kb: int) -> str:
     return f"same iterations ({ka}): the difference is the time per step"
 
 
-def _calibrate(side: Any, index: int, k: int) -> int:
+def _calibrate(side: Any, index: int, k: int, clock: str) -> int:
     """Replays per sample so one sample lasts at least MIN_SAMPLE_SECONDS."""
-    t = max(side.replay(index, k, 1), 1e-7)
+    t = max(side.replay(index, k, 1, clock), 1e-7)
     return max(1, math.ceil(MIN_SAMPLE_SECONDS / t))
 
 
 def _measure(
-    a_side: Any, b_side: Any, mon_a: list[_Monitored], mon_b: list[_Monitored], instances: Sequence[Any], repeats: int
+    a_side: Any, b_side: Any, mon_a: list[_Monitored], mon_b: list[_Monitored], instances: Sequence[Any],
+    repeats: int, clock: str,
 ) -> list[CaseComparison]:
     out = []
     for i, inst in enumerate(instances):
@@ -436,16 +474,16 @@ def _measure(
             )
             continue
         target, ka, kb = _timed_steps(ma, mb, inst.targets)
-        inner_a, inner_b = _calibrate(a_side, i, ka), _calibrate(b_side, i, kb)
+        inner_a, inner_b = _calibrate(a_side, i, ka, clock), _calibrate(b_side, i, kb, clock)
         ta: list[float] = []
         tb: list[float] = []
         for r in range(repeats):
             if r % 2 == 0:
-                ta.append(a_side.replay(i, ka, inner_a) / inner_a)
-                tb.append(b_side.replay(i, kb, inner_b) / inner_b)
+                ta.append(a_side.replay(i, ka, inner_a, clock) / inner_a)
+                tb.append(b_side.replay(i, kb, inner_b, clock) / inner_b)
             else:
-                tb.append(b_side.replay(i, kb, inner_b) / inner_b)
-                ta.append(a_side.replay(i, ka, inner_a) / inner_a)
+                tb.append(b_side.replay(i, kb, inner_b, clock) / inner_b)
+                ta.append(a_side.replay(i, ka, inner_a, clock) / inner_a)
         ratio, ci = ratio_interval(ta, tb, seed=i)
         out.append(
             CaseComparison(inst.name, ma.status, mb.status, target, ka, kb, tuple(ta), tuple(tb), ratio, ci,
@@ -467,10 +505,13 @@ def compare(
     jobs: int | None = None,
     catalogue_paths: Sequence[str | Path] = (),
     cwd: str | Path | None = None,
+    clock: str = "cpu",
 ) -> Comparison:
     """Measure B against A on the selected problems (see the module docstring)."""
     from benchsuite.catalogue import load_catalogue, select
 
+    if clock not in CLOCKS:
+        raise UserError(f"--clock: {clock!r} is not one of {', '.join(CLOCKS)}")
     if repeats < 2:
         raise UserError(f"--repeats: need at least 2 replay pairs, got {repeats}")
     instances = tuple(select(load_catalogue(list(catalogue_paths) or None), problems, tier))
@@ -494,10 +535,11 @@ def compare(
             sides.append(worker)
         mon_a = sides[0].setup(setup(a))
         mon_b = sides[1].setup(setup(b))
-        cases = _measure(sides[0], sides[1], mon_a, mon_b, instances, repeats)
+        cases = _measure(sides[0], sides[1], mon_a, mon_b, instances, repeats, clock)
     timed = [(c.times_a, c.times_b) for c in cases if c.ratio is not None]
     ratio, ci = overall_interval(timed) if timed else (None, None)
-    return Comparison(a.label, b.label, tuple(cases), ratio, ci, repeats)
+    method = Comparison.__dataclass_fields__["method"].default
+    return Comparison(a.label, b.label, tuple(cases), ratio, ci, repeats, method=f"{method}; clock: {CLOCKS[clock]}")
 
 
 def _run_table(out: str | Path, run_id: str) -> Any:
@@ -556,6 +598,10 @@ def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comp
 
 if __name__ == "__main__":  # worker process for git-revision comparisons
     if len(sys.argv) == 3 and sys.argv[1] == "--worker":
-        sys.exit(_worker_main(sys.argv[2]))
+        # run the importable module's copy, so that what it pickles names
+        # benchsuite.compare classes, not __main__ ones
+        from benchsuite.compare import _worker_main as _serve
+
+        sys.exit(_serve(sys.argv[2]))
     print("usage: python -m benchsuite.compare --worker PATH", file=sys.stderr)
     sys.exit(2)

@@ -176,3 +176,17 @@ class GDStepTwice:
     def step(self, x, g, s):
         x = x - self.lr * g
         return x - self.lr * g, s
+
+
+class TextbookAdamExtraWork(TextbookAdam):
+    """SLOWED, not broken: the same iterates as ``TextbookAdam`` plus wasted work each step.
+
+    Recomputes the bias-corrected second moment and its root and discards
+    them: a planted slowdown for the speed-up comparison's self-test.
+    """
+
+    def step(self, x, g, s):
+        x, s = super().step(x, g, s)
+        for _ in range(2):
+            np.sqrt(s["v"] / (1 - self.beta2 ** s["t"]))
+        return x, s

@@ -10,6 +10,7 @@ alike) does not decide the outcome.
 from __future__ import annotations
 
 import math
+import shutil
 
 import numpy as np
 import pytest
@@ -83,3 +84,163 @@ def test_fewer_than_two_pairs_is_an_error() -> None:
     with pytest.raises(ValueError):
         ratio_interval([1.0], [1.0])
     assert math.isfinite(ratio_interval([1.0, 1.1], [1.2, 1.3])[0])
+
+
+# ------------------------------------------------------------------------------
+# Real measurements. broken_rules.TextbookAdamExtraWork is TextbookAdam plus
+# wasted work in every step (a planted slowdown, about 1.3x on this problem,
+# measured independently by direct_ratio).
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from benchsuite.compare import Side, compare, worktree
+from benchsuite.errors import UserError
+
+REPO = Path(__file__).resolve().parents[1]
+PROBLEM = "quad-diag-kappa10-d10"  # d = 10: the rule's step dominates the time per iteration
+PAIRS = 41  # replay pairs per comparison; see direct_ratio for the reasoning
+
+
+def direct_ratio(k: int, pairs: int = 81) -> tuple[float, tuple[float, float]]:
+    """The true time ratio, measured without the comparison machinery.
+
+    Bare loops of k (gradient + step) iterations of each rule, interleaved,
+    each sample at least 20 ms of process CPU time (the comparison's default
+    clock: other processes competing for the 2 cores do not inflate it); the
+    ratio and its interval come from twice as many pairs as the comparison
+    uses, so the reference is the more precise of the two.
+    """
+    from broken_rules import TextbookAdam, TextbookAdamExtraWork
+
+    from benchsuite.catalogue import load_catalogue
+
+    problem = load_catalogue()[PROBLEM].build()
+
+    def once(cls: type, inner: int) -> float:
+        t0 = time.process_time()
+        for _ in range(inner):
+            rule = cls(lr=0.1)
+            x = problem.initial_point()
+            s = rule.init(x)
+            for _ in range(k):
+                x, s = rule.step(x, problem.grad(x), s)
+        return (time.process_time() - t0) / inner
+
+    inner = max(1, int(0.02 / once(TextbookAdam, 1)))
+    ta, tb = [], []
+    for i in range(pairs):
+        for cls, out in ((TextbookAdam, ta), (TextbookAdamExtraWork, tb))[:: 1 if i % 2 == 0 else -1]:
+            out.append(once(cls, inner))
+    return ratio_interval(ta, tb, seed=1)
+
+
+@pytest.mark.slow
+def test_planted_slowdown_is_recovered() -> None:
+    res = compare(
+        Side("broken_rules:TextbookAdam", {"lr": 0.1}),
+        Side("broken_rules:TextbookAdamExtraWork", {"lr": 0.1}),
+        problems=PROBLEM, repeats=PAIRS, jobs=1,
+    )
+    (case,) = res.cases
+    assert case.iters_a == case.iters_b and "same iterations" in case.note  # same iterates: only the step time differs
+    true, (tlo, thi) = direct_ratio(case.iters_a)
+    lo, hi = case.ci
+    print(f"planted slowdown: compare {case.ratio:.3f} [{lo:.3f}, {hi:.3f}]; direct {true:.3f} [{tlo:.3f}, {thi:.3f}]")
+    assert case.significant and lo > 1.0  # the slowdown is found
+    # The comparison's interval must be consistent with the independent
+    # measurement: the two intervals overlap (the direct estimate carries
+    # its own noise, so demanding that its point estimate lie inside would
+    # count that noise twice against the comparison).
+    assert lo <= thi and tlo <= hi
+
+
+@pytest.mark.slow
+def test_aa_comparison_is_not_significant() -> None:
+    """A rule against itself. Three independent A/A comparisons, at most one significant:
+    with a 5 % false-positive rate per comparison, two or more happen with
+    probability 3 * 0.05**2 * 0.95 + 0.05**3 = 0.7 %; an order effect or a biased
+    statistic would make most of them significant."""
+    flagged = []
+    for _ in range(3):
+        res = compare(Side("broken_rules:TextbookAdam", {"lr": 0.1}), Side("broken_rules:TextbookAdam", {"lr": 0.1}),
+                      problems=PROBLEM, repeats=PAIRS, jobs=1)
+        flagged.append(res.cases[0].significant)
+        assert res.cases[0].iters_a == res.cases[0].iters_b
+    assert sum(flagged) <= 1, flagged
+
+
+def test_changed_iteration_counts_are_stated() -> None:
+    res = compare(Side("adam", {"lr": 0.1}), Side("adam", {"lr": 0.05}), problems=PROBLEM, repeats=5, jobs=1)
+    (case,) = res.cases
+    assert case.iters_a != case.iters_b
+    assert "changed behaviour" in case.note
+    assert case.step_ratio == pytest.approx(case.ratio * case.iters_a / case.iters_b)
+
+
+def _git(cwd: Path, *args: str) -> str:
+    return subprocess.run(["git", *args], cwd=cwd, check=True, capture_output=True, text=True).stdout
+
+
+@pytest.mark.slow
+def test_two_git_revisions(tmp_path: Path) -> None:
+    """compare across two commits of a small user repository, each side importing its own version."""
+    repo = tmp_path / "teamrepo"
+    (repo / "teamopt").mkdir(parents=True)
+    src = (REPO / "tests" / "broken_rules.py").read_text()
+    (repo / "teamopt" / "__init__.py").write_text("")
+    (repo / "teamopt" / "optim.py").write_text(src + "\nTeamAdam = TextbookAdam\n")
+    _git(repo, "init", "-q")
+    _git(repo, "add", ".")
+    _git(repo, "-c", "user.name=t", "-c", "user.email=t@example.invalid", "commit", "-q", "-m", "fast")
+    (repo / "teamopt" / "optim.py").write_text(src + "\nTeamAdam = TextbookAdamExtraWork\n")
+    _git(repo, "-c", "user.name=t", "-c", "user.email=t@example.invalid", "commit", "-q", "-am", "slow")
+    # a third, uncommitted state that neither revision has: must not be imported
+    (repo / "teamopt" / "optim.py").write_text("raise ImportError('working tree must not be used')\n")
+    shutil.copytree(REPO / "results" / "reference", repo / "results" / "reference")
+    res = compare(
+        Side("teamopt.optim:TeamAdam", {"lr": 0.1}, rev="HEAD~1"),
+        Side("teamopt.optim:TeamAdam", {"lr": 0.1}, rev="HEAD"),
+        problems=PROBLEM, repeats=PAIRS, jobs=1, cwd=repo,
+    )
+    (case,) = res.cases
+    print(f"git revisions: {case.ratio:.3f} [{case.ci[0]:.3f}, {case.ci[1]:.3f}]")
+    assert case.iters_a == case.iters_b
+    assert case.significant and case.ci[0] > 1.0
+    assert res.label_a.endswith("@HEAD~1") and res.label_b.endswith("@HEAD")
+    # the temporary worktrees are gone
+    assert _git(repo, "worktree", "list").count("\n") == 1
+
+
+def test_worktree_is_removed_on_error(tmp_path: Path) -> None:
+    repo = tmp_path / "r"
+    repo.mkdir()
+    (repo / "f.txt").write_text("x")
+    _git(repo, "init", "-q")
+    _git(repo, "add", ".")
+    _git(repo, "-c", "user.name=t", "-c", "user.email=t@example.invalid", "commit", "-q", "-m", "one")
+    with pytest.raises(RuntimeError, match="boom"):
+        with worktree("HEAD", repo) as path:
+            assert (path / "f.txt").read_text() == "x"
+            raise RuntimeError("boom")
+    assert not path.exists()
+    assert _git(repo, "worktree", "list").count("\n") == 1
+    with pytest.raises(UserError, match="git rev-parse"):
+        with worktree("no-such-rev", repo):
+            pass
+
+
+def test_cli_compare_json(tmp_path: Path) -> None:
+    """The command prints JSON with the per-case intervals."""
+    out = subprocess.run(
+        [sys.executable, "-m", "benchsuite", "compare", "adam", "adam", "--param-a", "lr=0.1", "--param-b", "lr=0.1",
+         "--problems", PROBLEM, "--repeats", "5", "--jobs", "1", "--json", "--markdown", str(tmp_path / "c.md")],
+        cwd=REPO, capture_output=True, text=True, check=False,
+    )
+    assert out.returncode == 0, out.stderr
+    import json
+
+    doc = json.loads(out.stdout)
+    assert doc["cases"][0]["iters_a"] == doc["cases"][0]["iters_b"] and len(doc["cases"][0]["times_a"]) == 5
+    assert (tmp_path / "c.md").read_text().startswith("## benchsuite compare: B takes")
