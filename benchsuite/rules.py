@@ -7,9 +7,8 @@ factory, called with keyword hyperparameters; the object has
     step(x, g, state) -> (x, state)
 
 ``step`` updates ``x`` **in place** and returns it. All buffers are allocated
-in ``init`` (same dtype as ``x0``); a step makes no array temporaries: it uses
-in-place ufuncs with ``out=`` and BLAS ``axpy``/``scal`` (one memory pass each)
-for contiguous 1-D float64/float32 arrays.
+in ``init`` (same dtype and shape as ``x0``); a step makes no array
+temporaries: only numpy ufuncs with ``out=`` (no per-coordinate Python loops).
 
 The class defaults are the published ones (each docstring says where they come
 from and which values are recalled from memory). ``problem_defaults(constants)``
@@ -62,42 +61,24 @@ FALLBACK_LR = 1e-3
 
 
 # -- in-place kernels ----------------------------------------------------------
-def _blas(dtype: np.dtype) -> tuple[Any, Any] | None:
-    from scipy.linalg import blas
-
-    if dtype == np.float64:
-        return blas.daxpy, blas.dscal
-    if dtype == np.float32:
-        return blas.saxpy, blas.sscal
-    return None
-
-
 class _Kernels:
-    """``y += a*x`` and ``y *= a`` in one memory pass, without temporaries.
+    """``y += a*x`` and ``y *= a`` in place through one preallocated scratch buffer.
 
-    BLAS axpy/scal for contiguous 1-D float64/float32 arrays (in place: scipy
-    returns ``y`` itself), else numpy ufuncs through a scratch buffer.
+    Plain numpy ufuncs (single-threaded, no BLAS): the timing of a step does
+    not depend on BLAS thread settings, and ``y += a*x`` rounds exactly as the
+    expression ``y + a*x`` does.
     """
 
-    __slots__ = ("_axpy", "_scal", "_scratch")
+    __slots__ = ("_scratch",)
 
     def __init__(self, x0: np.ndarray) -> None:
-        fns = _blas(x0.dtype) if x0.ndim == 1 and x0.flags.c_contiguous else None
-        self._axpy, self._scal = fns if fns else (None, None)
-        self._scratch = None if fns else np.empty_like(x0)
+        self._scratch = np.empty_like(x0)
 
     def axpy(self, a: float, x: np.ndarray, y: np.ndarray) -> None:
-        if self._axpy is not None and y.flags.c_contiguous and x.flags.c_contiguous and x.dtype == y.dtype:
-            self._axpy(x, y, a=a)
-            return
-        s = self._scratch if self._scratch is not None else np.empty_like(y)
-        np.multiply(x, a, out=s)
-        np.add(y, s, out=y)
+        np.multiply(x, a, out=self._scratch)
+        np.add(y, self._scratch, out=y)
 
     def scal(self, a: float, y: np.ndarray) -> None:
-        if self._scal is not None and y.flags.c_contiguous:
-            self._scal(a, y)
-            return
         np.multiply(y, a, out=y)
 
 
@@ -314,8 +295,8 @@ class _XYNesterov:
     @staticmethod
     def step_xy(lr: float, beta: float, y: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> np.ndarray:
         xp, xn, ops = state["x"], state["xn"], state["ops"]
-        np.copyto(xn, y)
-        ops.axpy(-lr, g, xn)  # x_{k+1} = y_k - lr g
+        np.multiply(g, -lr, out=xn)
+        np.add(xn, y, out=xn)  # x_{k+1} = y_k - lr g
         np.subtract(xn, xp, out=y)
         ops.scal(beta, y)
         np.add(y, xn, out=y)  # y_{k+1} = x_{k+1} + beta (x_{k+1} - x_k)
@@ -604,7 +585,7 @@ class Adam(Rule):
     ``x <- x - lr (m_t / (1 - b1^t)) / (sqrt(v_t / (1 - b2^t)) + eps)``
     (eps outside the root, added to the bias-corrected root, as in torch).
     Computed as ``x -= (lr sqrt(c2)/c1) m / (sqrt(v) + eps sqrt(c2))`` with
-    ``c_i = 1 - b_i^t``: the same number up to round-off, fewer passes.
+    ``c_i = 1 - b_i^t``: the same number up to round-off, fewer memory passes.
 
     Defaults: ``lr = 1e-3``, ``beta1 = 0.9``, ``beta2 = 0.999``, ``eps = 1e-8``
     (the paper, section 2). torch: ``Adam(lr, betas=(beta1, beta2), eps)``.

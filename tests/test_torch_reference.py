@@ -10,7 +10,7 @@ the difference is real (the trajectories separate far beyond round-off).
 Tolerance: relative 1e-12 on every iterate (max-norm of the difference over
 the max-norm of torch's iterate). Both sides compute the same formulas in a
 different order (torch's ``lerp`` vs our multiply-add, the bias corrections
-folded into one scalar here, BLAS axpy with fused multiply-add), so each step
+folded into one scalar here), so each step
 differs by a few ulps (~1e-16 relative); on these contractive runs of 150
 steps the accumulated difference stays below ~150 * 10 * 2.2e-16 ~ 3e-13,
 hence 1e-12 with a small margin and no more.
