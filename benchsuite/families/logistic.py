@@ -5,7 +5,8 @@ Binary (:class:`Logistic`), labels ``y_i in {-1, +1}``::
     f(x) = (1/n) sum_i log(1 + exp(-y_i a_i.x)) + lam/2 ||x||^2
     grad = -(1/n) A^T (y * sigma(-y * A x)) + lam x,   sigma(t) = 1 / (1 + exp(-t))
 
-evaluated stably with ``np.logaddexp`` and ``scipy.special.expit``. The loss
+evaluated stably as ``log1p(exp(-|t|)) + max(t, 0)`` and with
+``scipy.special.expit``. The loss
 Hessian is ``A^T D A / n`` with ``D = diag(sigma(m)(1 - sigma(m)))`` and
 ``0 <= sigma(1 - sigma) <= 1/4``, so ``L <= ||A||_2^2 / (4n) + lam`` and
 ``mu >= lam``: both are **bounds**.
@@ -186,6 +187,8 @@ class Logistic(_Features):
         self._params = {"sparse": bool(sparse), "density": density if sparse else 1.0,
                         "zipf": zipf if sparse else None, "scale_range": scale_range, "signal": signal}
         self._z = np.empty(n, dtype=self.dtype)
+        self._a = np.empty(n, dtype=self.dtype)
+        self._b = np.empty(n, dtype=self.dtype)
         self._t = np.empty(self.dim, dtype=self.dtype)
 
     # -- oracle -------------------------------------------------------------
@@ -212,9 +215,17 @@ class Logistic(_Features):
         out += np.multiply(x, self.lam, out=self._t)
         return out
 
+    def _mean_softplus(self, t: np.ndarray) -> float:
+        """Mean of ``log(1 + exp(t)) = log1p(exp(-|t|)) + max(t, 0)``, stable, in two buffers."""
+        a = np.abs(t, out=self._a)
+        np.negative(a, out=a)
+        np.exp(a, out=a)
+        np.log1p(a, out=a)
+        return (float(a.sum()) + float(np.maximum(t, 0.0, out=self._b).sum())) * self._inv_n
+
     def value(self, x: np.ndarray) -> float:
         t = self._neg_margin(x, self.A, self._negy, self._z)
-        return float(np.logaddexp(0.0, t).mean()) + 0.5 * self.lam * float(x @ x)
+        return self._mean_softplus(t) + 0.5 * self.lam * float(x @ x)
 
     def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         t = self._neg_margin(x, self.A, self._negy, self._z)
@@ -222,7 +233,7 @@ class Logistic(_Features):
 
     def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
         t = self._neg_margin(x, self.A, self._negy, self._z)
-        f = float(np.logaddexp(0.0, t).mean()) + 0.5 * self.lam * float(x @ x)
+        f = self._mean_softplus(t) + 0.5 * self.lam * float(x @ x)
         return f, self._finish(x, self._weights(t, self._negy), out, self._inv_n, None)
 
     def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
