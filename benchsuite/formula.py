@@ -34,6 +34,7 @@ import math
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -53,6 +54,7 @@ __all__ = [
     "vars_used",
     "evaluate",
     "value_and_jacobian",
+    "BoundModel",
 ]
 
 #: function name -> canonical name (``atan`` is an alias of ``arctan``)
@@ -354,6 +356,9 @@ _FUNC_VALUE = {
     "sqrt": np.sqrt,
 }
 
+#: values of parameter-free subtrees, by ``id`` of the node (see :class:`BoundModel`)
+_Folded = Mapping[int, Any]
+
 
 def _data(data: Mapping[str, np.ndarray], name: str) -> np.ndarray:
     try:
@@ -368,7 +373,21 @@ def _param(b: np.ndarray, index: int):
     return b[index - 1]
 
 
-def _eval(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray]):
+def _apply(op: str, left, right):
+    if op == "+":
+        return left + right
+    if op == "-":
+        return left - right
+    if op == "*":
+        return left * right
+    if op == "/":
+        return left / right
+    return np.power(left, right)
+
+
+def _eval(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray], folded: _Folded):
+    if id(node) in folded:
+        return folded[id(node)]
     if isinstance(node, Num | Const):
         return node.value
     if isinstance(node, Param):
@@ -376,20 +395,10 @@ def _eval(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray]):
     if isinstance(node, Var):
         return _data(data, node.name)
     if isinstance(node, Neg):
-        return -_eval(node.operand, b, data)
+        return -_eval(node.operand, b, data, folded)
     if isinstance(node, Call):
-        return _FUNC_VALUE[node.func](_eval(node.arg, b, data))
-    left = _eval(node.left, b, data)
-    right = _eval(node.right, b, data)
-    if node.op == "+":
-        return left + right
-    if node.op == "-":
-        return left - right
-    if node.op == "*":
-        return left * right
-    if node.op == "/":
-        return left / right
-    return np.power(left, right)
+        return _FUNC_VALUE[node.func](_eval(node.arg, b, data, folded))
+    return _apply(node.op, _eval(node.left, b, data, folded), _eval(node.right, b, data, folded))
 
 
 def _length(data: Mapping[str, np.ndarray]) -> int:
@@ -406,33 +415,44 @@ def evaluate(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray]) -> np.nd
     for real and complex ``b``/data. Floating-point exceptions are silenced:
     overflow or a domain error gives ``inf``/``nan`` in the result.
     """
-    b = np.asarray(b)
-    m = _length(data)
-    with np.errstate(all="ignore"):
-        v = _eval(node, b, data)
-        return np.broadcast_to(np.asarray(v), (m,)).copy()
+    return BoundModel(node, data, fold=False).evaluate(b)
 
 
-def _forward(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray], m: int):
-    """(value, gradient) of a node; gradient shape (m, k) or ``None`` if constant in b."""
-    k = len(b)
+# Forward mode with sparse gradients: a node's gradient is a dict
+# {parameter position: d node / d b_j} holding only the parameters the subtree
+# uses (each entry a scalar or an (m,) array); {} for a parameter-free node.
+_Grad = dict[int, Any]
+
+
+def _scale(g: _Grad, factor) -> _Grad:
+    return {j: factor * v for j, v in g.items()}
+
+
+def _add(g: _Grad, h: _Grad, sign: float = 1.0) -> _Grad:
+    out = dict(g)
+    for j, v in h.items():
+        out[j] = out[j] + sign * v if j in out else sign * v
+    return out
+
+
+def _forward(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray], folded: _Folded):
+    """(value, sparse gradient) of a node; see :func:`value_and_jacobian` for the rules."""
+    if id(node) in folded:
+        return folded[id(node)], {}
     if isinstance(node, Num | Const):
-        return node.value, None
+        return node.value, {}
     if isinstance(node, Param):
-        v = _param(b, node.index)
-        g = np.zeros((m, k), dtype=np.result_type(b, np.float64))
-        g[:, node.index - 1] = 1.0
-        return v, g
+        return _param(b, node.index), {node.index - 1: 1.0}
     if isinstance(node, Var):
-        return _data(data, node.name), None
+        return _data(data, node.name), {}
     if isinstance(node, Neg):
-        v, g = _forward(node.operand, b, data, m)
-        return -v, None if g is None else -g
+        v, g = _forward(node.operand, b, data, folded)
+        return -v, _scale(g, -1.0)
     if isinstance(node, Call):
-        a, ga = _forward(node.arg, b, data, m)
+        a, ga = _forward(node.arg, b, data, folded)
         v = _FUNC_VALUE[node.func](a)
-        if ga is None:
-            return v, None
+        if not ga:
+            return v, {}
         if node.func == "exp":
             d = v
         elif node.func == "sin":
@@ -445,61 +465,105 @@ def _forward(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray], m: int):
             d = 1.0 / a
         else:  # sqrt
             d = 0.5 / v
-        return v, _col(d, m) * ga
-    a, ga = _forward(node.left, b, data, m)
-    c, gc = _forward(node.right, b, data, m)
+        return v, _scale(ga, d)
+    a, ga = _forward(node.left, b, data, folded)
+    c, gc = _forward(node.right, b, data, folded)
     op = node.op
-    if op in ("+", "-"):
-        v = a + c if op == "+" else a - c
-        if gc is None:
-            return v, ga
-        gc = gc if op == "+" else -gc
-        return v, gc if ga is None else ga + gc
+    v = _apply(op, a, c)
+    if not ga and not gc:
+        return v, {}
+    if op == "+":
+        return v, _add(ga, gc)
+    if op == "-":
+        return v, _add(ga, gc, -1.0)
     if op == "*":
-        v = a * c
-        g = None if ga is None else _col(c, m) * ga
-        if gc is not None:
-            g = _col(a, m) * gc if g is None else g + _col(a, m) * gc
-        return v, g
+        return v, _add(_scale(ga, c), _scale(gc, a))
     if op == "/":
-        v = a / c
-        if ga is None and gc is None:
-            return v, None
         # d(a/c) = (da - v dc) / c
-        num = ga if gc is None else (-_col(v, m) * gc if ga is None else ga - _col(v, m) * gc)
-        return v, num / _col(c, m)
+        inv = 1.0 / c
+        return v, _add(_scale(ga, inv), _scale(gc, -v * inv))
     # a ** c: d = c a**(c-1) da + a**c log(a) dc
-    v = np.power(a, c)
-    g = None
-    if ga is not None:
-        g = _col(c * np.power(a, c - 1.0), m) * ga
-    if gc is not None:
-        t = _col(v * np.log(a), m) * gc
-        g = t if g is None else g + t
+    g = _scale(ga, c * np.power(a, c - 1.0)) if ga else {}
+    if gc:
+        g = _add(g, _scale(gc, v * np.log(a)))
     return v, g
-
-
-def _col(v, m: int) -> np.ndarray:
-    """A scalar or length-m array as an (m, 1) column for broadcasting against (m, k)."""
-    return np.broadcast_to(np.asarray(v), (m,))[:, None]
 
 
 def value_and_jacobian(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     """The model values ``(m,)`` and the exact Jacobian ``d model / d b`` ``(m, k)``.
 
     Forward mode: each node carries its value and its gradient with respect
-    to ``b``; sums add gradients, products and quotients use the product and
-    quotient rules, ``a**c`` gives ``c a**(c-1) da + a**c log(a) dc`` (the
-    second term only where the exponent depends on ``b``), and the functions
-    their derivatives (``exp' = exp``, ``sin' = cos``, ``cos' = -sin``,
-    ``arctan' = 1/(1+a^2)``, ``log' = 1/a``, ``sqrt' = 1/(2 sqrt a)``).
-    Columns of parameters the formula does not use are zero.
+    to the parameters its subtree uses; sums add gradients, products and
+    quotients use the product and quotient rules, ``a**c`` gives
+    ``c a**(c-1) da + a**c log(a) dc`` (the second term only where the
+    exponent depends on ``b``), and the functions their derivatives
+    (``exp' = exp``, ``sin' = cos``, ``cos' = -sin``, ``arctan' = 1/(1+a^2)``,
+    ``log' = 1/a``, ``sqrt' = 1/(2 sqrt a)``). Columns of parameters the
+    formula does not use are zero.
     """
-    b = np.asarray(b)
-    m = _length(data)
-    with np.errstate(all="ignore"):
-        v, g = _forward(node, b, data, m)
-        v = np.broadcast_to(np.asarray(v), (m,)).copy()
-    if g is None:
-        g = np.zeros((m, len(b)), dtype=np.result_type(b, np.float64))
-    return v, np.ascontiguousarray(g)
+    return BoundModel(node, data, fold=False).value_and_jacobian(b)
+
+
+def _fold(node: Node, data: Mapping[str, np.ndarray], out: dict[int, Any]) -> bool:
+    """Record the values of maximal parameter-free subtrees in ``out``; True if ``node`` is one."""
+    if isinstance(node, Param):
+        return False
+    if isinstance(node, Num | Const | Var):
+        free = True
+    elif isinstance(node, Neg):
+        free = _fold(node.operand, data, out)
+    elif isinstance(node, Call):
+        free = _fold(node.arg, data, out)
+    else:
+        left, right = _fold(node.left, data, out), _fold(node.right, data, out)
+        free = left and right
+    if free and isinstance(node, Neg | Call | BinOp):
+        for child in (getattr(node, "operand", None), getattr(node, "arg", None), getattr(node, "left", None), getattr(node, "right", None)):
+            out.pop(id(child), None)  # keep only the largest parameter-free subtree
+        out[id(node)] = _eval(node, np.zeros(0), data, {})
+    return free
+
+
+class BoundModel:
+    """A formula bound to its data columns, for repeated evaluation.
+
+    With ``fold=True`` the parameter-free subtrees (such as ``cos(2*pi*x/12)``
+    in ENSO) are evaluated once here, at binding time, instead of on every
+    call. ``rows`` restricts an evaluation to some observations (a minibatch).
+    """
+
+    def __init__(self, node: Node, data: Mapping[str, np.ndarray], fold: bool = True) -> None:
+        self.node = node
+        self.data = {k: np.asarray(v) for k, v in data.items()}
+        self.m = _length(self.data)
+        self.folded: dict[int, Any] = {}
+        if fold:
+            with np.errstate(all="ignore"):
+                _fold(node, self.data, self.folded)
+
+    def _at(self, rows) -> tuple[Mapping[str, np.ndarray], _Folded, int]:
+        if rows is None:
+            return self.data, self.folded, self.m
+        data = {k: v[rows] for k, v in self.data.items()}
+        folded = {i: (v[rows] if np.ndim(v) else v) for i, v in self.folded.items()}
+        return data, folded, _length(data)
+
+    def evaluate(self, b: np.ndarray, rows: np.ndarray | slice | None = None) -> np.ndarray:
+        """Model values ``(m,)`` at ``b`` (see :func:`evaluate`)."""
+        b = np.asarray(b)
+        data, folded, m = self._at(rows)
+        with np.errstate(all="ignore"):
+            v = _eval(self.node, b, data, folded)
+            return np.broadcast_to(np.asarray(v), (m,)).copy()
+
+    def value_and_jacobian(self, b: np.ndarray, rows: np.ndarray | slice | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Model values ``(m,)`` and exact Jacobian ``(m, k)`` (see :func:`value_and_jacobian`)."""
+        b = np.asarray(b)
+        data, folded, m = self._at(rows)
+        with np.errstate(all="ignore"):
+            v, g = _forward(self.node, b, data, folded)
+            v = np.broadcast_to(np.asarray(v), (m,)).copy()
+        J = np.zeros((m, len(b)), dtype=np.result_type(b, v, np.float64))
+        for j, col in g.items():
+            J[:, j] = col
+        return v, J

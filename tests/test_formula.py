@@ -12,6 +12,7 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from benchsuite.formula import (
+    BoundModel,
     BinOp,
     Call,
     Const,
@@ -319,3 +320,27 @@ def test_jacobian_agrees_with_central_differences_on_power_of_parameters() -> No
         fd = (evaluate(tree, b + e, {"x": x}) - evaluate(tree, b - e, {"x": x})) / (2 * e[j])
         # central differences: truncation O(h^2) ~ 1e-12 relative plus round-off eps/h ~ 1e-10
         np.testing.assert_allclose(J[:, j], fd, rtol=1e-8)
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(EXPRESSIONS, st.lists(st.integers(0, 4), min_size=1, max_size=5))
+def test_bound_model_folding_and_rows_change_nothing(expr, rows) -> None:
+    """Folding parameter-free subtrees once and evaluating on some rows give the same numbers."""
+    tree = parse(_render(expr[0]))
+    data = _data()
+    bound = BoundModel(tree, data)
+    v, J = value_and_jacobian(tree, B, data)
+    v2, J2 = bound.value_and_jacobian(B)
+    # identical operations on identical inputs, only computed earlier: bitwise equal
+    np.testing.assert_array_equal(v2, v)
+    np.testing.assert_array_equal(J2, J)
+    np.testing.assert_array_equal(bound.evaluate(B), evaluate(tree, B, data))
+    idx = np.array(rows)
+    v3, J3 = bound.value_and_jacobian(B, idx)
+    np.testing.assert_array_equal(v3, v[idx])
+    np.testing.assert_array_equal(J3, J[idx])
+
+
+def test_folding_precomputes_data_only_subtrees() -> None:
+    bound = BoundModel(parse("b1*cos(2*pi*x/12) + b2*x**2"), {"x": np.arange(4.0)})
+    assert sorted(np.ndim(v) for v in bound.folded.values()) == [1, 1]  # cos(2 pi x / 12) and x**2
