@@ -224,6 +224,10 @@ class _Reader:
         m = _ERROR_TERM_RE.search(rhs_text)
         if m:
             rhs_text = rhs_text[: m.start()]
+        # positions in messages refer to the stripped texts the messages quote
+        rhs_offset += len(rhs_text) - len(rhs_text.lstrip())
+        rhs_text = rhs_text.strip()
+        lhs_text = lhs_text.strip()
 
         def line_of(pos: int) -> int:
             line = pieces[0][0]
@@ -235,15 +239,15 @@ class _Reader:
         try:
             response = parse(lhs_text, constants, allow_response=True)
         except ValueError as exc:
-            raise self.error(pieces[0][0] + 1, f"Model: cannot read the left-hand side {lhs_text.strip()!r}: {exc}") from None
+            raise self.error(pieces[0][0] + 1, f"Model: cannot read the left-hand side {lhs_text!r}: {exc}") from None
         try:
             model = parse(rhs_text, constants)
         except ValueError as exc:
             pos = _position(str(exc))
             line = line_of(rhs_offset + pos) if pos is not None else pieces[0][0] + 1
-            raise self.error(line, f"Model: cannot parse the formula {rhs_text.strip()!r}: {exc}") from None
+            raise self.error(line, f"Model: cannot parse the formula {rhs_text!r}: {exc}") from None
         if params_used(response) or len(vars_used(response)) != 1:
-            raise self.error(pieces[0][0] + 1, f"Model: the left-hand side {lhs_text.strip()!r} must be a function of the response alone")
+            raise self.error(pieces[0][0] + 1, f"Model: the left-hand side {lhs_text!r} must be a function of the response alone")
         used = params_used(model)
         wanted = set(range(1, k + 1))
         if used != wanted:
@@ -255,7 +259,7 @@ class _Reader:
                 else f"does not use b{missing[0]} (declared {k} parameters)"
             )
             raise self.error(pieces[0][0] + 1, f"Model: the formula {what}")
-        return first + 1, constants, rhs_text.strip(), model, response, lhs_text.strip(), k
+        return first + 1, constants, rhs_text, model, response, lhs_text, k
 
     # -- certified values -----------------------------------------------------------
     def table(self, start: int, k: int):

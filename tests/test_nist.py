@@ -181,3 +181,15 @@ def test_catalogue_builds_from_a_path(tmp_path) -> None:
     inst = instance_from_strd(shipped_path("Misra1a"), start=2)
     p = inst.build()
     assert isinstance(p, NistStrd) and p.data.name == "Misra1a" and p.start == 2
+
+
+def test_catalogue_reports_a_bad_file_in_one_line(tmp_path) -> None:
+    from benchsuite.catalogue import instance_from_strd
+    from benchsuite.errors import UserError
+
+    text = _synthetic_text().replace("b3*x2**2  +  e", "b3*x2**2))  +  e")
+    path = _write(tmp_path, text)
+    with pytest.raises(UserError) as err:
+        instance_from_strd(path)
+    msg = str(err.value)
+    assert "\n" not in msg and msg.startswith(f"{path}: line 19: Model: cannot parse the formula")

@@ -240,7 +240,7 @@ BAD_CASES = [
     ("Residual Sum of Squares:", "Residual Sums:", "no certified block: 'Residual Sum of Squares:' not found", None),
     ("  b1 =   1.0", "  c1 =   1.0", "parameter rows must be b1..b2 in order", "  b2 ="),
     # an unclosed bracket is reported on the line where it was opened
-    ("               y = b1*exp[-b2*x1] +", "               y = b1*exp[-b2*x1 +", "unbalanced '[' opened at position 7: missing ']'", "y = b1"),
+    ("               y = b1*exp[-b2*x1] +", "               y = b1*exp[-b2*x1 +", "'b1*exp[-b2*x1 + b3*x2**2': unbalanced '[' opened at position 6: missing ']'", "y = b1"),
     # a fault on a continuation line is reported on that line
     ("b3*x2**2  +  e", "b3*x2**2 )  +  e", "unbalanced closing bracket", "b3*x2**2 )"),
     ("b3*x2**2  +  e", "b3*gamma(x2)  +  e", "unknown function 'gamma'", "gamma"),
@@ -267,6 +267,10 @@ def test_bad_files_name_file_and_line(tmp_path: Path, synthetic_text: str, old: 
     assert message in msg
     if fault is not None:
         assert re.search(rf": line {_line_of(text, fault)}: ", msg), msg
+    quoted = re.search(r"formula '([^']*)': .*at position (\d+)", msg)
+    if quoted:  # a position points into the formula the message quotes
+        formula, pos = quoted.group(1), int(quoted.group(2))
+        assert formula[pos] in "[]()" or formula[pos:].startswith("gamma"), (formula, pos)
     elif "data row" in message:
         assert re.search(r": line \d+: ", msg)
 
