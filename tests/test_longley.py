@@ -17,6 +17,7 @@ from benchsuite.families.longley import (
     Longley,
     exact_gram,
     exact_inverse,
+    load_longley,
 )
 from benchsuite.strd import lre
 
@@ -142,3 +143,12 @@ def test_metadata_published_and_cvxpy(problem: Longley) -> None:
     assert float(p.cvxpy_objective(x).value) == pytest.approx(p.value(np.array(CERTIFIED)), rel=1e-10)  # same sum, cvxpy's evaluation order
     q = Longley(dtype="float32")
     assert q.grad(q.initial_point()).dtype == np.float32
+
+
+def test_direct_csv_read_equals_the_statsmodels_loader() -> None:
+    X, y = load_longley()
+    X2, y2 = load_longley(via_loader=True)
+    np.testing.assert_array_equal(X, X2)  # the same decimal strings parsed to the same floats
+    np.testing.assert_array_equal(y, y2)
+    assert X.shape == (16, 7) and np.all(X[:, 0] == 1.0)
+    assert (y[0], X[0, 1], X[-1, 6]) == (60323.0, 83.0, 1962.0)  # NIST StRD Longley data, first/last rows

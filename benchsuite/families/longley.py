@@ -57,12 +57,34 @@ R_SQUARED: float = 0.995479004577296
 SOURCE = "NIST StRD Longley certified values"
 
 
-def load_longley() -> tuple[np.ndarray, np.ndarray]:
-    """The design ``X`` (16 x 7, a column of ones first) and response ``y`` from statsmodels."""
+_COLUMNS = ("GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR")
+
+
+def load_longley(via_loader: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    """The design ``X`` (16 x 7, a column of ones first) and response ``y`` from statsmodels.
+
+    Reads the CSV file statsmodels ships (``statsmodels/datasets/longley/longley.csv``)
+    directly, which imports only the light top-level package (``statsmodels.datasets``
+    pulls in most of statsmodels, ~2 s); falls back to statsmodels' own loader when
+    that file is not where this version keeps it, or when ``via_loader`` is set.
+    """
+    if not via_loader:
+        import csv
+        from importlib import resources
+
+        try:
+            text = (resources.files("statsmodels") / "datasets" / "longley" / "longley.csv").read_text()
+        except (ModuleNotFoundError, FileNotFoundError, NotADirectoryError):
+            text = None
+        if text is not None:
+            rows = list(csv.DictReader(text.splitlines()))
+            exog = np.array([[float(r[c]) for c in _COLUMNS] for r in rows])
+            y = np.array([float(r["TOTEMP"]) for r in rows])
+            return np.ascontiguousarray(np.column_stack([np.ones(len(rows)), exog])), y
     from statsmodels.datasets import longley
 
     data = longley.load_pandas()
-    exog = data.exog[["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]].to_numpy(dtype=np.float64)
+    exog = data.exog[list(_COLUMNS)].to_numpy(dtype=np.float64)
     X = np.column_stack([np.ones(exog.shape[0]), exog])
     return np.ascontiguousarray(X), data.endog.to_numpy(dtype=np.float64).copy()
 
