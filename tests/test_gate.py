@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 
 import pytest
@@ -256,3 +257,74 @@ def test_changed_definition_is_a_configuration_error(recorded, tmp_path: Path) -
     changed.write_text(EXTRA.read_text().replace("seed = 1", "seed = 2"))
     with pytest.raises(UserError, match="changed since the baseline was recorded: quad-small-gradients-kappa10-d10"):
         run_gate(load_baseline(recorded["adam"]), "adam", catalogue_paths=[changed])
+
+
+def test_stochastic_case_clean_rerun_passes_and_regression_fails(tmp_path: Path) -> None:
+    """Minibatch Adam over 5 seeds: the same seeds reproduce every count (any --jobs);
+    halving the step is a real regression beyond the seed-to-seed spread."""
+    from benchsuite.catalogue import load_catalogue, select
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, run_cases
+
+    spec = parse_rule("adam", {"lr": 0.01})
+    (inst,) = select(load_catalogue(), "lsq-kappa1e2-500x50")
+    case = Case(instance=inst, rule=spec, oracle="minibatch", batch=50, seeds=(0, 1, 2, 3, 4))
+    results = run_cases([case], jobs=2, timing=False, progress=False)
+    path = write_baseline(make_baseline(results, rule_label=spec.label), tmp_path / "sgd.json")
+    base = load_baseline(path)
+    assert base.cases[0].stochastic and base.cases[0].targets[0] == 1e-2
+    assert base.cases[0].outcomes[0].iters[0] is not None  # the loose target is reached, so there is something to lose
+    for jobs in (1, 2):
+        clean = run_gate(base, "adam", jobs=jobs)
+        assert clean.passed and all(t.baseline == t.candidate for t in clean.verdicts[0].targets), clean.summary()
+    slow = run_gate(base, "adam", ["lr=0.005"], jobs=2)
+    assert not slow.passed, gate_table_text(slow)
+
+
+def gate_table_text(report) -> str:
+    from benchsuite.report import gate_table
+
+    return gate_table(report)
+
+
+def _cli(cwd: Path, *args: str):
+    import os
+    import subprocess
+    import sys
+
+    env = {**os.environ, "PYTHONPATH": str(REPO / "tests")}  # broken_rules importable
+    return subprocess.run([sys.executable, "-m", "benchsuite", *args], cwd=cwd, capture_output=True, text=True,
+                          env=env, check=False)
+
+
+def test_cli_baseline_and_gate_exit_codes(tmp_path: Path) -> None:
+    import xml.etree.ElementTree as ET
+
+    shutil.copytree(REPO / "results" / "reference", tmp_path / "results" / "reference")
+    rec = _cli(tmp_path, "baseline", "--rule", "adam", "--param", "lr=0.1", "--problems", "quad-diag-kappa10-d10",
+               "--out", "base.json", "--jobs", "1")
+    assert rec.returncode == 0, rec.stderr
+    again = _cli(tmp_path, "baseline", "--rule", "adam", "--problems", "quad-diag-kappa10-d10", "--out", "base.json")
+    assert again.returncode == 2 and again.stderr.strip() == "benchsuite: error: base.json: baseline exists; pass --force to overwrite it"
+
+    ok = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "base.json", "--junit", "ok.xml", "--jobs", "1")
+    assert ok.returncode == 0, ok.stdout + ok.stderr
+    assert "PASS: 1 of 1 cases pass" in ok.stdout
+
+    bad = _cli(tmp_path, "gate", "--rule", "broken_rules:AdamLrSquared", "--baseline", "base.json", "--junit", "bad.xml",
+               "--markdown", "bad.md", "--jobs", "1")
+    assert bad.returncode == 1, bad.stdout + bad.stderr
+    root = ET.parse(tmp_path / "bad.xml").getroot()  # well-formed XML
+    assert root.get("failures") == "1"
+    assert "161 iterations vs baseline 32" in root.find("testcase/failure").get("message")
+    assert (tmp_path / "bad.md").read_text().startswith("## ❌ benchsuite gate: FAIL")
+
+    js = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "base.json", "--json", "--jobs", "1")
+    assert js.returncode == 0 and json.loads(js.stdout)["passed"] is True
+
+    missing = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "nope.json")
+    assert missing.returncode == 2 and missing.stderr.strip() == "benchsuite: error: nope.json: baseline file not found"
+    (tmp_path / "broken.json").write_text('{"schema": "benchsuite-baseline/1", "cases": [{}]}')
+    malformed = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "broken.json")
+    assert malformed.returncode == 2 and "broken.json: cases[0].targets: missing" in malformed.stderr
+    assert "Traceback" not in malformed.stderr
