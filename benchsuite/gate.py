@@ -379,7 +379,7 @@ def run_gate(
     limits = {} if timeout is None else {"timeout": timeout}
     results = run_cases(cases, jobs=jobs, timing=False, progress=False, **limits)
     candidates = [record_from_result(r) for r in results]
-    label = cases[0].rule.label if cases else rule
+    label = rule
     if overrides:
-        label = f"{rule} ({', '.join(f'{k}={v!r}' for k, v in sorted(overrides.items()))})"
+        label += f" ({', '.join(f'{k}={v!r}' for k, v in sorted(overrides.items()))})"
     return judge(baseline, candidates, config, candidate_rule=label)
