@@ -68,8 +68,6 @@ FUNCTIONS: dict[str, str] = {
     "sqrt": "sqrt",
 }
 
-_BINARY_OPS = ("+", "-", "*", "/", "**")
-
 
 # -- tree ---------------------------------------------------------------------
 @dataclass(frozen=True)
