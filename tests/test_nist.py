@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy.optimize import least_squares
@@ -10,7 +12,7 @@ from benchsuite.families import resolve_family
 from benchsuite.families.nist import NistStrd
 from benchsuite.strd import lre, read_strd, shipped_datasets, shipped_path
 
-from test_strd import _synthetic_text, _write, certified_point
+from test_strd import ROSZMAN1_B1_MISPRINT, _synthetic_text, _write, certified_point
 
 SHIPPED = shipped_datasets()
 EPS = np.finfo(np.float64).eps
@@ -68,7 +70,7 @@ def test_reaches_nist_certified_values(name: str, start: int, method: str) -> No
     """NIST StRD certified values: LRE >= 6 on every parameter and on the RSS."""
     p = NistStrd(dataset=name, start=start)
     b = fit(p, method)
-    certified = certified_point(name)  # Roszman1: NIST's b1, see tests/test_strd.py
+    certified = certified_point(name)
     assert np.min(lre(b, certified)) >= 6.0
     rss = p.value(b)
     if name == "Lanczos1":
@@ -139,9 +141,18 @@ def test_published_and_metadata() -> None:
     assert p.constants().L is None
     assert p.describe()["model"] == "y = b1*(1-exp[-b2*x])"
     assert "WARNING" not in pub.note
-    for name in SHIPPED:  # only a misprinted certified block is flagged
-        note = NistStrd(dataset=name).published().note
-        assert ("WARNING" in note) == (NistStrd(dataset=name).published().x[0] == 1.20196866396), name
+    for name in SHIPPED:  # every shipped certified block reproduces its certified RSS
+        assert "WARNING" not in NistStrd(dataset=name).published().note, name
+
+
+def test_misprinted_certified_block_is_flagged(tmp_path: Path) -> None:
+    """A copy of Roszman1 with the b1 misprint we once received is reported, not trusted."""
+    text = shipped_path("Roszman1").read_bytes().replace(b"2.0196866396E-01 ", b"1.20196866396E-0")
+    bad = tmp_path / "Roszman1.dat"
+    bad.write_bytes(text)
+    pub = NistStrd(file=str(bad)).published()
+    assert pub.x[0] == ROSZMAN1_B1_MISPRINT
+    assert "WARNING" in pub.note and "inconsistent" in pub.note
 
 
 def test_float32_build() -> None:

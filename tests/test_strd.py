@@ -15,20 +15,17 @@ from benchsuite.strd import LRE_CAP, lre, read_strd, shipped_datasets, shipped_p
 
 SHIPPED = shipped_datasets()
 
-# NIST StRD, Roszman1: the certified b1 as NIST publishes it is 2.0196866396E-01
-# (from memory, and it is the value consistent with the file's own certified
-# residual sum of squares, see test_roszman1_b1_misprint). The copy shipped here
-# prints "1.20196866396E-0" instead.
+# NIST StRD, Roszman1: the certified b1 NIST publishes is 2.0196866396E-01 (from
+# memory). The copy we received printed "1.20196866396E-0"; benchsuite/data/strd/
+# ERRATA.md records the correction, and test_roszman1_b1_correction checks it
+# against the file's own certified residual sum of squares.
 ROSZMAN1_B1 = 2.0196866396e-01
+ROSZMAN1_B1_MISPRINT = 1.20196866396
 
 
 def certified_point(name: str) -> np.ndarray:
-    """The certified parameters of a shipped file, with the Roszman1 misprint corrected."""
-    d = read_strd(shipped_path(name))
-    b = np.array(d.certified)
-    if name == "Roszman1" and b[0] == 1.20196866396:
-        b[0] = ROSZMAN1_B1
-    return b
+    """The certified parameters of a shipped file."""
+    return np.array(read_strd(shipped_path(name)).certified)
 
 
 # -- the LRE measure ------------------------------------------------------------------
@@ -133,17 +130,16 @@ def test_certified_standard_deviations_from_the_jacobian(name: str) -> None:
     assert np.min(lre(sd, np.array(d.certified_sd))) >= 8.0
 
 
-def test_roszman1_b1_misprint() -> None:
-    """The shipped Roszman1 copy prints b1 = 1.20196866396; NIST's value is 0.20196866396."""
+def test_roszman1_b1_correction() -> None:
+    """Our Roszman1 copy carries NIST's b1; the misprinted value cannot be the minimiser."""
     d = read_strd(shipped_path("Roszman1"))
-    assert d.certified[0] in (1.20196866396, ROSZMAN1_B1)
+    assert d.certified[0] == ROSZMAN1_B1  # NIST StRD Roszman1 certified b1 (from memory)
     b = np.array(d.certified)
-    b[0] = 1.20196866396
-    r = d.y - d.model_value(b)
-    assert r @ r > 1e4 * d.rss  # the misprinted value cannot be the minimiser: every residual is off by 1
-    b[0] = ROSZMAN1_B1
     r = d.y - d.model_value(b)
     assert lre(r @ r, d.rss) >= 9.0  # printed digits, as in test_certified_values_are_consistent
+    b[0] = ROSZMAN1_B1_MISPRINT
+    r = d.y - d.model_value(b)
+    assert r @ r > 1e4 * d.rss  # every residual is off by 1: the sum of squares is 25, not 4.9e-4
 
 
 def test_shipped_path_unknown_name() -> None:

@@ -107,9 +107,9 @@ class NistStrd(ResidualProblem):
         The note flags a file whose certified parameters do not give its
         certified RSS: ``f(b_cert) > 2 RSS + 1e-18 sum t(y)^2`` (the absolute
         term covers an RSS at round-off level, as Lanczos1's 1.4e-25, where
-        parameters printed to 11 digits cannot reproduce it). The shipped
-        Roszman1 copy trips it: it prints b1 = 1.20196866396 for NIST's
-        0.20196866396.
+        parameters printed to 11 digits cannot reproduce it). The
+        Roszman1 copy we received tripped it (b1 = 1.20196866396 for NIST's
+        0.20196866396; see data/strd/ERRATA.md).
         """
         d = self.data
         note = (
