@@ -307,6 +307,11 @@ def test_cli_baseline_and_gate_exit_codes(tmp_path: Path) -> None:
     again = _cli(tmp_path, "baseline", "--rule", "adam", "--problems", "quad-diag-kappa10-d10", "--out", "base.json")
     assert again.returncode == 2 and again.stderr.strip() == "benchsuite: error: base.json: baseline exists; pass --force to overwrite it"
 
+    div = _cli(tmp_path, "baseline", "--rule", "gd", "--param", "lr=5", "--problems", "quad-diag-kappa10-d10",
+               "--out", "div.json", "--jobs", "1")
+    assert div.returncode == 2 and "div.json: not written: 1 case(s) failed with gd(lr=5): quad-diag-kappa10-d10 (diverged" in div.stderr
+    assert not (tmp_path / "div.json").exists()
+
     ok = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "base.json", "--junit", "ok.xml", "--jobs", "1")
     assert ok.returncode == 0, ok.stdout + ok.stderr
     assert "PASS: 1 of 1 cases pass" in ok.stdout

@@ -55,14 +55,23 @@ def run(args: argparse.Namespace) -> int:
         results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False)
     else:
         results = _swept(args.sweep, spec, instances, case, args.jobs)
+    broken = [f"{r.case.instance.name} ({r.status}{_why(r)})" for r in results
+              if r.status in ("diverged", "error", "timeout")]
+    if broken:
+        raise UserError(f"{out}: not written: {len(broken)} case(s) failed with {spec.label}: {'; '.join(broken)}")
     baseline = make_baseline(results, rule_label=spec.label, machine=machine_info())
     write_baseline(baseline, out, force=args.force)
-    bad = [r.case.instance.name for r in results if r.status not in ("reached", "partial")]
     print(f"wrote {out}: {len(results)} case(s) of {spec.label}")
-    if bad:
-        print(f"note: {len(bad)} case(s) reached no target or failed: {', '.join(bad)}; "
-              "the gate only holds the candidate to what the baseline reached")
+    unreached = [r.case.instance.name for r in results if r.status == "budget"]
+    if unreached:
+        print(f"note: no target reached on {', '.join(unreached)}; "
+              "the gate only holds a candidate to what the baseline reached")
     return 0
+
+
+def _why(result: Any) -> str:
+    errors = [o.error.strip().splitlines()[-1] for o in result.outcomes if o.error]
+    return f": {errors[0]}" if errors else ""
 
 
 def _swept(text: str, spec: Any, instances: list[Any], case: Any, jobs: int | None) -> list[Any]:
