@@ -174,6 +174,8 @@ def test_float32_variant():
         (LeastSquares, {"kappa": 0.5}),
         (LeastSquares, {"noise": -1.0}),
         (LeastSquares, {"d": 2.5}),
+        (LeastSquares, {"d": None}),
+        (LeastSquares, {"n": float("inf")}),
         (Ridge, {"lam": 0.0}),
         (Ridge, {"rho": 1.0}),
         (Ridge, {"d": -3}),

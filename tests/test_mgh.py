@@ -143,6 +143,8 @@ def test_extended_rosenbrock_sizes_and_float32():
     "params",
     [
         {"function": "no_such_function"},
+        {"function": ["wood"]},
+        {"function": "box3d", "m": "ten"},
         {"function": "wood", "n": 5},
         {"function": "extended_rosenbrock", "n": 7},
         {"function": "extended_rosenbrock", "n": 0},

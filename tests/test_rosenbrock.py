@@ -105,7 +105,7 @@ def test_out_buffer_and_float32():
     np.testing.assert_allclose(g, rosen_der(x.astype(np.float64)), rtol=1e-5, atol=1e-3)
 
 
-@pytest.mark.parametrize("d", [1, 0, 2.5, True, "x"])
+@pytest.mark.parametrize("d", [1, 0, 2.5, True, "x", None, float("inf")])
 def test_impossible_dimension_raises(d):
-    with pytest.raises((ValueError, TypeError)):
+    with pytest.raises(ValueError):
         Rosenbrock(d)

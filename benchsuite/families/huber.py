@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from benchsuite.families.least_squares import positive_int
 from benchsuite.problem import Constants, Problem, as_dtype
 
 
@@ -50,9 +51,7 @@ class Huber(Problem):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
-        for name, v in (("n", n), ("d", d)):
-            if isinstance(v, bool) or int(v) != v or v < 1:
-                raise ValueError(f"{name} must be a positive integer, got {v!r}")
+        n, d = positive_int("n", n), positive_int("d", d)
         if not (np.isfinite(delta) and delta > 0):
             raise ValueError(f"delta must be > 0, got {delta!r}")
         if not (np.isfinite(lam) and lam >= 0):

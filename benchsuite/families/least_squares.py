@@ -34,8 +34,13 @@ def orthonormal_columns(rng: np.random.Generator, n: int, d: int) -> np.ndarray:
     return q * np.sign(np.diag(r))
 
 
-def _positive_int(name: str, value: Any) -> int:
-    if isinstance(value, bool) or int(value) != value or value < 1:
+def positive_int(name: str, value: Any) -> int:
+    """``value`` as an int, or ValueError naming ``name`` unless it is a positive integer."""
+    try:
+        ok = not isinstance(value, bool) and int(value) == value and value >= 1
+    except (TypeError, ValueError, OverflowError):
+        ok = False
+    if not ok:
         raise ValueError(f"{name} must be a positive integer, got {value!r}")
     return int(value)
 
@@ -152,8 +157,8 @@ class LeastSquares(_LinearRegression):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
-        n = _positive_int("n", n)
-        d = _positive_int("d", d)
+        n = positive_int("n", n)
+        d = positive_int("d", d)
         if n < d:
             raise ValueError(f"need n >= d for a prescribed condition number, got n={n}, d={d}")
         if not (np.isfinite(kappa) and kappa >= 1):
@@ -206,8 +211,8 @@ class Ridge(_LinearRegression):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
-        n = _positive_int("n", n)
-        d = _positive_int("d", d)
+        n = positive_int("n", n)
+        d = positive_int("d", d)
         if not (np.isfinite(lam) and lam > 0):
             raise ValueError(f"lam must be > 0 (use least_squares for lam = 0), got {lam!r}")
         if not (-1 < rho < 1):

@@ -37,13 +37,8 @@ from typing import Any
 
 import numpy as np
 
+from benchsuite.families.least_squares import positive_int
 from benchsuite.problem import Constants, Problem, as_dtype
-
-
-def _positive_int(name: str, value: Any) -> int:
-    if isinstance(value, bool) or int(value) != value or value < 1:
-        raise ValueError(f"{name} must be a positive integer, got {value!r}")
-    return int(value)
 
 
 def _check_lam(lam: float) -> float:
@@ -169,8 +164,8 @@ class Logistic(_Features):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
-        n = _positive_int("n", n)
-        self.dim = _positive_int("d", d)
+        n = positive_int("n", n)
+        self.dim = positive_int("d", d)
         self.lam = _check_lam(lam)
         self.seed = int(seed)
         rng = np.random.default_rng(self.seed)
@@ -301,9 +296,9 @@ class Softmax(_Features):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
-        n = _positive_int("n", n)
-        self.d = _positive_int("d", d)
-        self.K = _positive_int("K", K)
+        n = positive_int("n", n)
+        self.d = positive_int("d", d)
+        self.K = positive_int("K", K)
         if self.K < 2:
             raise ValueError(f"K must be >= 2 classes, got {K!r}")
         self.dim = self.d * self.K

@@ -32,6 +32,7 @@ from typing import Any
 
 import numpy as np
 
+from benchsuite.families.least_squares import positive_int
 from benchsuite.problem import Constants, Published, ResidualProblem, as_dtype
 
 SOURCE = "Moré, Garbow & Hillstrom (1981), ACM TOMS 7(1):17-41"
@@ -206,7 +207,7 @@ class MGH(ResidualProblem):
 
     def __init__(self, function: str = "wood", n: int | None = None, m: int | None = None,
                  dtype: str = "float64") -> None:
-        spec = FUNCTIONS.get(function)
+        spec = FUNCTIONS.get(function) if isinstance(function, str) else None
         if spec is None:
             raise ValueError(f"function must be one of {', '.join(sorted(FUNCTIONS))}; got {function!r}")
         self.function, self.spec = function, spec
@@ -216,19 +217,17 @@ class MGH(ResidualProblem):
                 raise ValueError(f"{function} has fixed n = {spec.n}, got n = {n!r}")
             self.dim = spec.n
         else:
-            n = spec.default if n is None else n
-            if isinstance(n, bool) or int(n) != n or n < 2 or n % 2:
+            self.dim = positive_int("n", spec.default if n is None else n)
+            if self.dim % 2:
                 raise ValueError(f"{function} needs an even n >= 2, got n = {n!r}")
-            self.dim = int(n)
         if spec.m is not None or spec.n is None:
             if m is not None and m != (spec.m or self.dim):
                 raise ValueError(f"{function} has fixed m = {spec.m or 'n'}, got m = {m!r}")
             self.m = spec.m or self.dim
         else:
-            m = spec.default if m is None else m
-            if isinstance(m, bool) or int(m) != m or m < self.dim:
+            self.m = positive_int("m", spec.default if m is None else m)
+            if self.m < self.dim:
                 raise ValueError(f"{function} needs an integer m >= {self.dim}, got m = {m!r}")
-            self.m = int(m)
         self.n_samples = self.m
         self._x0 = spec.x0(self.dim).astype(np.float64)
 

@@ -21,6 +21,7 @@ from typing import Any
 
 import numpy as np
 
+from benchsuite.families.least_squares import positive_int
 from benchsuite.problem import Constants, Problem, Published, as_dtype
 
 
@@ -34,9 +35,9 @@ class Rosenbrock(Problem):
     convex = False
 
     def __init__(self, d: int = 2, dtype: str = "float64") -> None:
-        if isinstance(d, bool) or int(d) != d or d < 2:
+        self.dim = positive_int("d", d)
+        if self.dim < 2:
             raise ValueError(f"d must be an integer >= 2, got {d!r}")
-        self.dim = int(d)
         self.dtype = as_dtype(dtype)
         self._x0 = np.where(np.arange(self.dim) % 2 == 0, -1.2, 1.0)
 
