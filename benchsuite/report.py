@@ -205,7 +205,7 @@ def _compare_rows(result: Comparison) -> list[tuple[str, ...]]:
     for c in result.cases:
         its = "-" if c.iters_a is None else f"{c.iters_a}/{c.iters_b}"
         target = "steps" if c.target is None else f"{c.target:.0e}"
-        sig = "yes" if c.significant else "no"
+        sig = "-" if c.ci is None else ("yes" if c.significant else "no")
         rows.append((c.instance, target, its, _x(c.iter_ratio), _x(c.ratio), _ci(c), sig, _x(c.step_ratio), c.note))
     return rows
 
@@ -215,7 +215,8 @@ _COMPARE_HEAD = ("instance", "target", "iters A/B", "iter B/A", "time B/A", "95%
 
 def compare_table(result: Comparison) -> str:
     """Terminal table of a comparison: per case, then the overall line."""
-    head = f"A = {result.label_a}\nB = {result.label_b}\n{result.method}; {result.repeats} pairs per case\n"
+    pairs = f"; {result.repeats} pairs per case" if any(c.ci is not None for c in result.cases) else ""
+    head = f"A = {result.label_a}\nB = {result.label_b}\n{result.method}{pairs}\n"
     return head + table(_COMPARE_HEAD, _compare_rows(result)) + "\n" + result.summary()
 
 

@@ -244,3 +244,36 @@ def test_cli_compare_json(tmp_path: Path) -> None:
     doc = json.loads(out.stdout)
     assert doc["cases"][0]["iters_a"] == doc["cases"][0]["iters_b"] and len(doc["cases"][0]["times_a"]) == 5
     assert (tmp_path / "c.md").read_text().startswith("## benchsuite compare: B takes")
+
+
+def _saved_run(out: Path, run_id: str, rule: str, rows: list[tuple[str, int, float, int | None, float | None]]) -> None:
+    """A run folder with the runner's table columns that compare_runs reads."""
+    import pandas as pd
+
+    d = out / "runs" / run_id
+    d.mkdir(parents=True)
+    pd.DataFrame(
+        [{"instance": i, "rule": rule, "seed": 0, "target_index": j, "target": t, "iterations": k,
+          "time_to_target": s, "status": "reached"} for i, j, t, k, s in rows]
+    ).to_csv(d / "table.csv", index=False)
+
+
+def test_compare_saved_runs(tmp_path: Path) -> None:
+    from benchsuite.compare import compare_runs
+    from benchsuite.report import compare_table
+
+    _saved_run(tmp_path, "r1", "adam", [("q", 0, 1e-2, 10, 1.0), ("q", 1, 1e-4, 40, 4.0), ("p", 0, 1e-2, 5, 2.0)])
+    _saved_run(tmp_path, "r2", "adam", [("q", 0, 1e-2, 10, 2.0), ("q", 1, 1e-4, 20, 2.0), ("p", 0, 1e-2, None, None)])
+    res = compare_runs("r1", "r2", out=tmp_path)
+    q, p = res.cases
+    assert (q.target, q.iters_a, q.iters_b, q.ratio) == (1e-4, 40, 20, 0.5)  # the tightest target both reached
+    assert "B takes fewer iterations" in q.note and q.ci is None
+    assert p.ratio is None and res.ratio == 0.5 and res.ci is None
+    assert "no interval" in compare_table(res)
+    with pytest.raises(UserError, match="no saved run 'r3'"):
+        compare_runs("r1", "r3", out=tmp_path)
+    _saved_run(tmp_path, "mixed", "adam", [("q", 0, 1e-2, 10, 1.0)])
+    (tmp_path / "runs" / "mixed" / "table.csv").write_text(
+        (tmp_path / "runs" / "mixed" / "table.csv").read_text() + "q,gd,0,1,0.0001,30,3.0,reached\n")
+    with pytest.raises(UserError, match="holds 2 rules"):
+        compare_runs("r1", "mixed", out=tmp_path)
