@@ -232,7 +232,8 @@ class HeavyBall(Rule):
     Polyak's form ``x_{k+1} = x_k - lr g_k + beta (x_k - x_{k-1})`` is
     computed as ``v_k = beta v_{k-1} + (1 - dampening) g_k``, ``x_{k+1} = x_k - lr v_k``
     with ``v_0 = g_0`` (identical for ``dampening = 0``; the first-step rule
-    ``v_0 = g_0`` is torch's convention when ``dampening > 0``).
+    ``v_0 = g_0`` is torch's convention when ``dampening > 0``). The state
+    keeps ``w = -lr v``, the displacement, which saves a memory pass.
 
     Defaults: ``lr = 1e-3``, ``momentum = 0.9``, ``dampening = 0`` (common
     practice, no source). With L and mu known, the textbook parameters for an
@@ -265,17 +266,17 @@ class HeavyBall(Rule):
         return {"lr": hp["lr"], "momentum": hp["momentum"], "dampening": hp["dampening"]}
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
-        return {"v": np.zeros_like(x0), "k": 0, "ops": _Kernels(x0)}
+        return {"w": np.zeros_like(x0), "k": 0, "ops": _Kernels(x0)}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
-        v, ops = state["v"], state["ops"]
+        w, ops = state["w"], state["ops"]  # w = -lr v: the displacement x_{k+1} - x_k
         if state["k"] == 0:
-            np.copyto(v, g)
+            np.multiply(g, -self.lr, out=w)
         else:
-            ops.scal(self.momentum, v)
-            ops.axpy(1.0 - self.dampening, g, v)
+            ops.scal(self.momentum, w)
+            ops.axpy(-self.lr * (1.0 - self.dampening), g, w)
         state["k"] += 1
-        ops.axpy(-self.lr, v, x)
+        np.add(x, w, out=x)
         return x, state
 
 
@@ -290,15 +291,15 @@ class _XYNesterov:
 
     @staticmethod
     def init_xy(x0: np.ndarray) -> dict[str, Any]:
-        return {"x": x0.copy(), "xn": np.empty_like(x0), "k": 0, "t": 1.0, "ops": _Kernels(x0)}
+        return {"x": x0.copy(), "xn": np.empty_like(x0), "k": 0, "t": 1.0}
 
     @staticmethod
     def step_xy(lr: float, beta: float, y: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> np.ndarray:
-        xp, xn, ops = state["x"], state["xn"], state["ops"]
+        xp, xn = state["x"], state["xn"]
         np.multiply(g, -lr, out=xn)
         np.add(xn, y, out=xn)  # x_{k+1} = y_k - lr g
         np.subtract(xn, xp, out=y)
-        ops.scal(beta, y)
+        np.multiply(y, beta, out=y)
         np.add(y, xn, out=y)  # y_{k+1} = x_{k+1} + beta (x_{k+1} - x_k)
         state["x"], state["xn"] = xn, xp
         return y
@@ -450,17 +451,18 @@ class AdaGrad(Rule):
         }
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
-        return {"s": np.full_like(x0, self.initial_accumulator), "buf": np.empty_like(x0), "t": 0, "ops": _Kernels(x0)}
+        return {"s": np.full_like(x0, self.initial_accumulator), "buf": np.empty_like(x0), "t": 0}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
-        s, buf, ops = state["s"], state["buf"], state["ops"]
+        s, buf = state["s"], state["buf"]
         t = state["t"] = state["t"] + 1
         np.multiply(g, g, out=buf)
         np.add(s, buf, out=s)
         np.sqrt(s, out=buf)
         np.add(buf, self.eps, out=buf)
         np.divide(g, buf, out=buf)
-        ops.axpy(-self.lr / (1.0 + (t - 1) * self.lr_decay), buf, x)
+        np.multiply(buf, -self.lr / (1.0 + (t - 1) * self.lr_decay), out=buf)
+        np.add(x, buf, out=x)
         return x, state
 
 
@@ -470,6 +472,8 @@ class RMSProp(Rule):
     ``v_t = decay v_{t-1} + (1 - decay) g_t^2`` (``v_0 = initial_mean_square``),
     ``x <- x - lr g_t / (sqrt(v_t) + eps)``, or ``/ sqrt(v_t + eps)`` with
     ``eps_inside_sqrt = true`` (the TensorFlow 1 convention, from memory).
+    The state keeps ``V = v / (1 - decay)`` (``V = decay V + g^2``: one
+    memory pass fewer); the factor is folded back into the update.
 
     Defaults: ``decay = 0.9`` (the slides, from memory); the slides give no lr
     and no eps: ``lr = 1e-3``, ``eps = 1e-8`` outside the root (common
@@ -503,21 +507,24 @@ class RMSProp(Rule):
         return {"lr": hp["lr"], "alpha": hp["decay"], "eps": hp["eps"]}
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
-        return {"v": np.full_like(x0, self.initial_mean_square), "buf": np.empty_like(x0), "ops": _Kernels(x0)}
+        V = np.full_like(x0, self.initial_mean_square / (1.0 - self.decay))
+        return {"V": V, "buf": np.empty_like(x0)}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
-        v, buf, ops = state["v"], state["buf"], state["ops"]
+        V, buf = state["V"], state["buf"]  # V = v / (1 - decay)
         np.multiply(g, g, out=buf)
-        ops.scal(self.decay, v)
-        ops.axpy(1.0 - self.decay, buf, v)
-        if self.eps_inside_sqrt:
-            np.add(v, self.eps, out=buf)
+        np.multiply(V, self.decay, out=V)
+        np.add(V, buf, out=V)
+        c = 1.0 - self.decay  # sqrt(v) = sqrt(c) sqrt(V)
+        if self.eps_inside_sqrt:  # sqrt(v + eps) = sqrt(c) sqrt(V + eps/c)
+            np.add(V, self.eps / c, out=buf)
             np.sqrt(buf, out=buf)
-        else:
-            np.sqrt(v, out=buf)
-            np.add(buf, self.eps, out=buf)
+        else:  # sqrt(v) + eps = sqrt(c) (sqrt(V) + eps/sqrt(c))
+            np.sqrt(V, out=buf)
+            np.add(buf, self.eps / math.sqrt(c), out=buf)
         np.divide(g, buf, out=buf)
-        ops.axpy(-self.lr, buf, x)
+        np.multiply(buf, -self.lr / math.sqrt(c), out=buf)
+        np.add(x, buf, out=x)
         return x, state
 
 
@@ -556,14 +563,15 @@ class AdaDelta(Rule):
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
         z = np.zeros_like
-        return {"eg": z(x0), "edx": z(x0), "buf": np.empty_like(x0), "d": np.empty_like(x0), "ops": _Kernels(x0)}
+        return {"eg": z(x0), "edx": z(x0), "buf": np.empty_like(x0), "d": np.empty_like(x0)}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
-        eg, edx, buf, d, ops = state["eg"], state["edx"], state["buf"], state["d"], state["ops"]
-        rho = self.rho
+        eg, edx, buf, d = state["eg"], state["edx"], state["buf"], state["d"]
+        rho, c = self.rho, 1.0 - self.rho
         np.multiply(g, g, out=buf)
-        ops.scal(rho, eg)
-        ops.axpy(1.0 - rho, buf, eg)
+        np.multiply(buf, c, out=buf)
+        np.multiply(eg, rho, out=eg)
+        np.add(eg, buf, out=eg)
         np.add(eg, self.eps, out=buf)
         np.sqrt(buf, out=buf)  # RMS[g]_t
         np.add(edx, self.eps, out=d)
@@ -571,10 +579,11 @@ class AdaDelta(Rule):
         np.divide(d, buf, out=d)
         np.multiply(d, g, out=d)  # d_t
         np.multiply(d, d, out=buf)
-        ops.scal(rho, edx)
-        c = 1.0 - rho
-        ops.axpy(c * self.lr * self.lr if self.accumulate_scaled_delta else c, buf, edx)
-        ops.axpy(-self.lr, d, x)
+        np.multiply(buf, c * self.lr * self.lr if self.accumulate_scaled_delta else c, out=buf)
+        np.multiply(edx, rho, out=edx)
+        np.add(edx, buf, out=edx)
+        np.multiply(d, -self.lr, out=d)
+        np.add(x, d, out=x)
         return x, state
 
 
@@ -584,8 +593,10 @@ class Adam(Rule):
     ``m_t = b1 m + (1 - b1) g``, ``v_t = b2 v + (1 - b2) g^2``,
     ``x <- x - lr (m_t / (1 - b1^t)) / (sqrt(v_t / (1 - b2^t)) + eps)``
     (eps outside the root, added to the bias-corrected root, as in torch).
-    Computed as ``x -= (lr sqrt(c2)/c1) m / (sqrt(v) + eps sqrt(c2))`` with
-    ``c_i = 1 - b_i^t``: the same number up to round-off, fewer memory passes.
+    The state keeps ``M = m/(1 - b1)`` and ``V = v/(1 - b2)``
+    (``M = b1 M + g``, ``V = b2 V + g^2``: a memory pass fewer each) and the
+    update folds the factors and bias corrections into two scalars: the same
+    numbers up to round-off.
 
     Defaults: ``lr = 1e-3``, ``beta1 = 0.9``, ``beta2 = 0.999``, ``eps = 1e-8``
     (the paper, section 2). torch: ``Adam(lr, betas=(beta1, beta2), eps)``.
@@ -607,32 +618,37 @@ class Adam(Rule):
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
         z = np.zeros_like
-        return {"m": z(x0), "v": z(x0), "buf": np.empty_like(x0), "t": 0, "ops": _Kernels(x0)}
+        return {"M": z(x0), "V": z(x0), "buf": np.empty_like(x0), "t": 0}
 
     def _moments(self, g: np.ndarray, state: dict[str, Any]) -> int:
-        m, v, buf, ops = state["m"], state["v"], state["buf"], state["ops"]
-        b1, b2 = self.beta1, self.beta2
-        ops.scal(b1, m)
-        ops.axpy(1.0 - b1, g, m)
+        """``M = b1 M + g``, ``V = b2 V + g^2``: the moments scaled by 1/(1 - b_i)."""
+        M, V, buf = state["M"], state["V"], state["buf"]
+        np.multiply(M, self.beta1, out=M)
+        np.add(M, g, out=M)
         np.multiply(g, g, out=buf)
-        ops.scal(b2, v)
-        ops.axpy(1.0 - b2, buf, v)
+        np.multiply(V, self.beta2, out=V)
+        np.add(V, buf, out=V)
         t = state["t"] = state["t"] + 1
         return t
 
-    def _apply(self, x: np.ndarray, denom_sq: np.ndarray, t: int, state: dict[str, Any], bias: bool = True) -> None:
-        """``x -= lr m_hat / (sqrt(denom_sq_hat) + eps)``; no correction when ``bias`` is False."""
-        m, buf, ops = state["m"], state["buf"], state["ops"]
+    def _apply(self, x: np.ndarray, V: np.ndarray, t: int, state: dict[str, Any], bias: bool = True) -> None:
+        """``x -= lr m_hat / (sqrt(v_hat) + eps)`` from the scaled ``M``, ``V``.
+
+        ``m_hat = (1-b1) M / c1``, ``sqrt(v_hat) = k sqrt(V)`` with
+        ``k = sqrt((1-b2)/c2)``, ``c_i = 1 - b_i^t`` (``c_i = 1`` without bias correction).
+        """
+        buf = state["buf"]
         c1 = 1.0 - self.beta1**t if bias else 1.0
-        sc2 = math.sqrt(1.0 - self.beta2**t) if bias else 1.0
-        np.sqrt(denom_sq, out=buf)
-        np.add(buf, self.eps * sc2, out=buf)
-        np.divide(m, buf, out=buf)
-        ops.axpy(-self.lr * sc2 / c1, buf, x)
+        k = math.sqrt((1.0 - self.beta2) / (1.0 - self.beta2**t if bias else 1.0))
+        np.sqrt(V, out=buf)
+        np.add(buf, self.eps / k, out=buf)
+        np.divide(state["M"], buf, out=buf)
+        np.multiply(buf, -self.lr * (1.0 - self.beta1) / (c1 * k), out=buf)
+        np.add(x, buf, out=x)
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
         t = self._moments(g, state)
-        self._apply(x, state["v"], t, state)
+        self._apply(x, state["V"], t, state)
         return x, state
 
 
@@ -675,9 +691,9 @@ class AdamW(Adam):
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
         lam = self.weight_decay * (self.lr if self.decay_scaled_by_lr else 1.0)
         if lam:
-            state["ops"].scal(1.0 - lam, x)
+            np.multiply(x, 1.0 - lam, out=x)
         t = self._moments(g, state)
-        self._apply(x, state["v"], t, state)
+        self._apply(x, state["V"], t, state)
         return x, state
 
 
@@ -721,7 +737,7 @@ class AMSGrad(Adam):
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
         t = self._moments(g, state)
         vmax = state["vmax"]
-        np.maximum(vmax, state["v"], out=vmax)
+        np.maximum(vmax, state["V"], out=vmax)  # the scaling 1/(1-b2) commutes with max
         self._apply(x, vmax, t, state, bias=self.bias_correction)
         return x, state
 
@@ -755,25 +771,26 @@ class Adamax(Rule):
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
         z = np.zeros_like
-        return {"m": z(x0), "u": z(x0), "buf": np.empty_like(x0), "t": 0, "ops": _Kernels(x0)}
+        return {"M": z(x0), "u": z(x0), "buf": np.empty_like(x0), "t": 0}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
-        m, u, buf, ops = state["m"], state["u"], state["buf"], state["ops"]
+        M, u, buf = state["M"], state["u"], state["buf"]  # M = m / (1 - b1)
         b1 = self.beta1
         t = state["t"] = state["t"] + 1
-        ops.scal(b1, m)
-        ops.axpy(1.0 - b1, g, m)
+        np.multiply(M, b1, out=M)
+        np.add(M, g, out=M)
         np.abs(g, out=buf)
         if self.eps:
             np.add(buf, self.eps, out=buf)
-        ops.scal(self.beta2, u)
+        np.multiply(u, self.beta2, out=u)
         np.maximum(u, buf, out=u)
         if self.eps:
-            np.divide(m, u, out=buf)
+            np.divide(M, u, out=buf)
         else:
             np.maximum(u, np.finfo(u.dtype).tiny, out=buf)
-            np.divide(m, buf, out=buf)
-        ops.axpy(-self.lr / (1.0 - b1**t), buf, x)
+            np.divide(M, buf, out=buf)
+        np.multiply(buf, -self.lr * (1.0 - b1) / (1.0 - b1**t), out=buf)
+        np.add(x, buf, out=x)
         return x, state
 
 
@@ -834,27 +851,28 @@ class NAdam(Rule):
 
     def init(self, x0: np.ndarray) -> dict[str, Any]:
         z = np.zeros_like
-        return {"m": z(x0), "v": z(x0), "buf": np.empty_like(x0), "num": np.empty_like(x0), "t": 0, "P": 1.0, "ops": _Kernels(x0)}
+        e = np.empty_like
+        return {"M": z(x0), "V": z(x0), "buf": e(x0), "num": e(x0), "t": 0, "P": 1.0, "ops": _Kernels(x0)}
 
     def step(self, x: np.ndarray, g: np.ndarray, state: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
-        m, v, buf, num, ops = state["m"], state["v"], state["buf"], state["num"], state["ops"]
+        M, V, buf, num, ops = state["M"], state["V"], state["buf"], state["num"], state["ops"]
         b1, b2 = self.beta1, self.beta2
         t = state["t"] = state["t"] + 1
         mu, mu_next = self._mu(t), self._mu(t + 1)
         P = state["P"] = state["P"] * mu
         P_next = P * mu_next
-        ops.scal(b1, m)
-        ops.axpy(1.0 - b1, g, m)
+        np.multiply(M, b1, out=M)  # M = m / (1 - b1), V = v / (1 - b2) as in Adam
+        np.add(M, g, out=M)
         np.multiply(g, g, out=buf)
-        ops.scal(b2, v)
-        ops.axpy(1.0 - b2, buf, v)
-        sc2 = math.sqrt(1.0 - b2**t)
+        np.multiply(V, b2, out=V)
+        np.add(V, buf, out=V)
+        k = math.sqrt((1.0 - b2) / (1.0 - b2**t))  # sqrt(v_hat) = k sqrt(V)
         np.multiply(g, (1.0 - mu) / (1.0 - P), out=num)
-        ops.axpy(mu_next / (1.0 - P_next), m, num)
-        np.sqrt(v, out=buf)
-        np.add(buf, self.eps * sc2, out=buf)
+        ops.axpy(mu_next * (1.0 - b1) / (1.0 - P_next), M, num)
+        np.sqrt(V, out=buf)
+        np.add(buf, self.eps / k, out=buf)
         np.divide(num, buf, out=num)
-        ops.axpy(-self.lr * sc2, num, x)
+        ops.axpy(-self.lr / k, num, x)
         return x, state
 
 
