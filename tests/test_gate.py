@@ -333,3 +333,13 @@ def test_cli_baseline_and_gate_exit_codes(tmp_path: Path) -> None:
     malformed = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "broken.json")
     assert malformed.returncode == 2 and "broken.json: cases[0].targets: missing" in malformed.stderr
     assert "Traceback" not in malformed.stderr
+
+
+def test_kestrel_example_baseline_passes(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The committed example (examples/kestrel) stays valid: its rule passes its own baseline, exactly."""
+    kestrel = REPO / "examples" / "kestrel"
+    monkeypatch.chdir(kestrel)
+    base = load_baseline("baseline.json")
+    report = run_gate(base, "kestrel_optim:KestrelAdam", config=GateConfig(exact=True), catalogue_paths=["problems.toml"],
+                      jobs=1)
+    assert report.passed, [v.reasons for v in report.failures]
