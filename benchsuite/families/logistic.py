@@ -36,6 +36,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+from scipy.special import expit
 
 from benchsuite.families.least_squares import positive_int
 from benchsuite.problem import Constants, Problem, as_dtype
@@ -127,9 +128,6 @@ class _Features(Problem):
         self._inv_n = 1.0 / self.n_samples
         self.norm_A = spectral_norm(A)
 
-    def _rows(self, idx: np.ndarray) -> Any:
-        return self.A[idx]
-
     def _tmatvec(self, r: np.ndarray, out: np.ndarray) -> np.ndarray:
         """``out = A^T r`` (dense: BLAS into ``out``; sparse: CSR product of the stored transpose)."""
         if self.sparse:
@@ -194,8 +192,6 @@ class Logistic(_Features):
 
     def _weights(self, t: np.ndarray, negy: np.ndarray) -> np.ndarray:
         """``-y * sigma(-y a.x)``, the derivative of each loss term in ``a.x``, in place of ``t``."""
-        from scipy.special import expit
-
         expit(t, out=t)
         return np.multiply(t, negy, out=t)
 
@@ -252,8 +248,6 @@ class Logistic(_Features):
         )
 
     def hessp(self, x: np.ndarray, v: np.ndarray) -> np.ndarray:
-        from scipy.special import expit
-
         x = np.asarray(x, dtype=np.float64)
         v = np.asarray(v, dtype=np.float64)
         p = expit(self.y64 * (self.A64 @ x))
