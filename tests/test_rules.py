@@ -335,3 +335,19 @@ def test_every_rule_documents_itself() -> None:
         doc = cls.__doc__ or ""
         assert cls.name == name and cls.paper and "Default" in doc and "torch" in doc
         assert torch_equivalent(name).torch_class == cls.torch_class
+
+
+def test_rules_command_lists_every_rule(capsys: pytest.CaptureFixture[str]) -> None:
+    import json
+
+    from benchsuite.cli import main
+
+    assert main(["rules", "--json"]) == 0
+    records = json.loads(capsys.readouterr().out)
+    assert [r["name"] for r in records] == list(BUILTIN_RULES)
+    adam = next(r for r in records if r["name"] == "adam")
+    assert adam["defaults"] == {"lr": 1e-3, "beta1": 0.9, "beta2": 0.999, "eps": 1e-8}
+    assert adam["torch"]["class"] == "torch.optim.Adam"
+    assert main(["rules"]) == 0
+    text = capsys.readouterr().out
+    assert all(f"{name}  (" in text for name in BUILTIN_RULES)
