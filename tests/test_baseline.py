@@ -148,3 +148,28 @@ def test_round_trip_property(fp: list[float], lr: float) -> None:
     c = CaseRecord(**{**c.__dict__, "outcomes": (o,), "hyperparams": (("lr", lr),)})
     back = parse_baseline(json.loads(dumps(baseline(c))))
     assert back.cases[0] == c
+
+
+def test_cli_baseline_records_the_sweep_selection(tmp_path: Path) -> None:
+    """--sweep: every grid point is run, the per-problem choice is what the baseline records."""
+    import os
+    import shutil
+    import subprocess
+    import sys
+
+    repo = Path(__file__).resolve().parents[1]
+    if (repo / "results" / "reference").is_dir():
+        shutil.copytree(repo / "results" / "reference", tmp_path / "results" / "reference")
+    out = subprocess.run(
+        [sys.executable, "-m", "benchsuite", "baseline", "--rule", "gd", "--sweep", "lr=0.1,1.0,1.5",
+         "--problems", "quad-diag-kappa10-d10,quad-diag-kappa100-d50", "--out", "b.json", "--jobs", "1"],
+        cwd=tmp_path, capture_output=True, text=True, env=os.environ, check=False,
+    )
+    assert out.returncode == 0, out.stderr
+    b = load_baseline(tmp_path / "b.json")
+    lrs = {c.instance: c.hyperparams_dict()["lr"] for c in b.cases}
+    # both quadratics have L = 1: lr = 1.5 < 2/L converges, and is the fastest of the three
+    # values on kappa 10 (contraction max|1 - 1.5 lam| = 0.85 vs 0.9 for lr = 1)
+    assert lrs["quad-diag-kappa10-d10"] == 1.5
+    assert "selected lr=" in out.stdout
+    assert all(c.rule_params == (("lr", lrs[c.instance]),) for c in b.cases)  # the selected grid point's spec
