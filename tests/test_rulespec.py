@@ -157,6 +157,8 @@ def test_same_adam_as_builtin_import_path_torch_and_pair(user_dir: Path) -> None
     mine = run(build_rule(parse_rule("user_rules:NumpyAdam", ["lr=0.01"])), Q, 120)
     via_torch = run(build_rule(parse_rule("torch.optim:Adam", ["lr=0.01", "betas=0.9,0.999"])), Q, 120)  # torch.optim
     pair = run(build_rule(parse_rule("user_rules:adam_pair", ["learning_rate=0.01"])), Q, 120)
+    builtin_by_path = run(build_rule(parse_rule("benchsuite.rules:Adam", ["lr=0.01"])), Q, 120)
+    np.testing.assert_array_equal(builtin_by_path, ref)  # the same class by another name: bit for bit
     assert rel(mine, ref) <= RTOL
     assert rel(via_torch, ref) <= RTOL
     assert rel(pair, ref) <= RTOL
