@@ -138,3 +138,24 @@ def test_interrupt_keeps_finished_cases_and_resume_completes_them(tmp_path: Path
     a = resumed.sort_values(["case", "target_index"]).iterations.tolist()
     b = full.sort_values(["case", "target_index"]).iterations.tolist()
     assert a == b and len(a) == 6 * 4
+
+
+def test_minibatch_run_reports_seeds_reached(tmp_path: Path, capsys) -> None:
+    code, out, _ = _run(capsys, "run", "--problems", "lsq-kappa1e2-500x50,quad-diag-kappa10-d10", "--rule", "gd",
+                        "--param", "lr=0.3", "--batch", "50", "--no-replace", "--seeds", "2", "--budget", "200",
+                        "--no-timing", "--jobs", "2", "--out", str(tmp_path))
+    assert code == 0
+    assert "[2/2]" in out and "minibatch B=50" in out
+    assert "skipped (not finite sums" in out and "quad-diag-kappa10-d10" in out.split("skipped")[1]
+
+
+def test_table_marks_a_count_above_its_bound() -> None:
+    from benchsuite.commands.run import format_results
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, CaseResult, SeedOutcome
+
+    inst = load_catalogue()["quad-diag-kappa10-d10"]
+    o = SeedOutcome(0, "reached", (5, 50, 60, 70), (5, 50, 60, 70), (None,) * 4, 1e-9, 1e-4, (), 70)
+    r = CaseResult(Case(inst, parse_rule("gd")), {"lr": 1.0}, (o,), (10, 20, 80, 90), "reached")
+    text = format_results([r])
+    assert "50 (<=20!)" in text and "5 (<=10)" in text and "above its published bound" in text

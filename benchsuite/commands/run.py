@@ -147,6 +147,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
             continue
         by_inst.setdefault(r.case.instance.name, []).append(r)
     problems: list[str] = []
+    violated = False
     for name, rs in by_inst.items():
         c = rs[0].case
         targets = c.run_targets
@@ -155,6 +156,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
         head = ["rule", "status"] + [f"{t:.0e}" for t in targets] + ["time/step", f"time to {targets[-1]:.0e}"]
         rows = [head]
         for r in rs:
+            violated = violated or any(r.bound_violated())
             label = r.case.rule.label
             if chosen:
                 label = r.case.rule.name + "(" + ", ".join(f"{k}={v:.3g}" if isinstance(v, float) else f"{k}={v}"
@@ -167,7 +169,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
                     break
         lines.extend(_grid(rows))
         lines.append("")
-    if any("!" in line for line in lines):
+    if violated:
         lines.append("! a measured count above its published bound: a bug in the rule, the constants or the runner")
     if problems:
         lines.append("problems:")
