@@ -7,10 +7,13 @@ arrays (BLAS pinned to one thread with threadpoolctl):
   gradient of ``F(Ax)`` needs;
 * ``problem.grad(x, out=g)`` and ``problem.value_and_grad(x, out=g)``.
 
-The three are interleaved within each repeat, so drift on a shared machine hits
-all alike; it prints the best (minimum) times, their ratio to the baseline,
-and the median of the per-repeat ratios. The aim is <= 1.15x.
-Usage: ``python benchmarks/bench_gradients.py [--sizes 5000x500,20000x1000] [--repeats 15]``.
+Times are CPU time of this process (one BLAS thread), so waiting for a core on
+a shared machine does not count; the three are interleaved within each repeat,
+so remaining drift (caches, clock) hits all alike. It prints the best (minimum)
+times, their ratio to the baseline, and the median of the per-repeat ratios.
+The aim is <= 1.15x.
+
+Usage: ``python benchmarks/bench_gradients.py [--sizes 5000x500,20000x1000] [--repeats 21]``.
 """
 
 from __future__ import annotations
@@ -28,11 +31,11 @@ from benchsuite.families.logistic import Logistic
 
 
 def mean_seconds(fn: Callable[[], object], inner: int) -> float:
-    """Mean time of ``inner`` back-to-back calls."""
-    t0 = time.perf_counter()
+    """Mean CPU time of ``inner`` back-to-back calls (process time: robust to other load)."""
+    t0 = time.process_time()
     for _ in range(inner):
         fn()
-    return (time.perf_counter() - t0) / inner
+    return (time.process_time() - t0) / inner
 
 
 def bench(name: str, problem, repeats: int) -> None:
@@ -62,7 +65,7 @@ def main() -> None:
     ap.add_argument("--sizes", default="5000x500,20000x1000", help="comma-separated NxD sizes")
     ap.add_argument("--repeats", type=int, default=21)
     args = ap.parse_args()
-    print("BLAS threads pinned to 1; best times in ms; ratio = family / (A @ x, A.T @ r): of best times, median")
+    print("BLAS threads pinned to 1; best CPU times in ms; ratio = family / (A @ x, A.T @ r): of best times, median")
     print(f"{'family':<10} {'size':>12} {'bare ms':>9} {'grad ms':>9} {'best':>7} {'median':>7}"
           f" {'v&g ms':>9} {'best':>7} {'median':>7}")
     with threadpool_limits(limits=1):
