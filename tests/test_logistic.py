@@ -87,6 +87,13 @@ def test_logistic_value_by_direct_formula_and_stable_for_huge_margins():
     # for |t| >> 1, log(1 + exp(-t)) = max(0, -t) to double precision
     hinge = np.mean(np.maximum(0.0, -p.y64 * (A @ big))) + 0.5 * p.lam * big @ big
     assert f == pytest.approx(hinge, rel=1e-12)
+    from scipy.special import expit
+
+    for z in (x, 30 * x, big):
+        # reference gradient with scipy.special.expit; the family's own sigmoid is exp-based:
+        # both accurate to a few ulps, also in the tails
+        ref = -A.T @ (p.y64 * expit(-p.y64 * (A @ z))) / p.n_samples + p.lam * z
+        np.testing.assert_allclose(p.grad(z), ref, rtol=1e-12, atol=1e-14 * np.abs(ref).max())
 
 
 @pytest.mark.parametrize("kind", SMALL)
