@@ -157,6 +157,7 @@ class LeastSquares(_LinearRegression):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
+        as_dtype(dtype)  # fail before generating any data
         n = positive_int("n", n)
         d = positive_int("d", d)
         if n < d:
@@ -211,6 +212,7 @@ class Ridge(_LinearRegression):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
+        as_dtype(dtype)  # fail before generating any data
         n = positive_int("n", n)
         d = positive_int("d", d)
         if not (np.isfinite(lam) and lam > 0):
