@@ -162,6 +162,7 @@ class Logistic(_Features):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
+        as_dtype(dtype)  # fail before generating any data
         n = positive_int("n", n)
         self.dim = positive_int("d", d)
         self.lam = _check_lam(lam)
@@ -299,6 +300,7 @@ class Softmax(_Features):
         seed: int = 0,
         dtype: str = "float64",
     ) -> None:
+        as_dtype(dtype)  # fail before generating any data
         n = positive_int("n", n)
         self.d = positive_int("d", d)
         self.K = positive_int("K", K)
