@@ -1,7 +1,7 @@
 """Huber regression: a smooth, convex, outlier-robust loss.
 
 ``f(x) = (1/n) sum_i h_delta(a_i.x - b_i) + lam/2 ||x||^2`` with the Huber function
-(Huber 1964, Ann. Math. Statist. 35, 73-101)::
+(Huber 1964, Ann. Math. Statist. 35, 73-101; citation from memory)::
 
     h_delta(r) = r^2 / 2                 if |r| <= delta
                = delta (|r| - delta/2)   otherwise

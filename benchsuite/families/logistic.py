@@ -19,7 +19,7 @@ shape ``(d, K)`` flattened row-major::
 
 The per-sample Hessian of ``logsumexp`` is ``diag(p) - p p^T``, bounded by
 Böhning's bound ``1/2 (I - 11^T/K) <= 1/2 I`` (Böhning 1992, Ann. Inst. Stat.
-Math. 44, 197-200), so ``L <= ||A||_2^2 / (2n) + lam`` and ``mu >= lam``.
+Math. 44, 197-200; citation from memory), so ``L <= ||A||_2^2 / (2n) + lam`` and ``mu >= lam``.
 
 Data: features are seeded Gaussian (optionally with column scales on a
 geometric grid) or, for ``sparse = true``, a scipy.sparse CSR matrix whose

@@ -1,7 +1,8 @@
 """Moré, Garbow & Hillstrom (1981) unconstrained test functions.
 
 Source: J. J. Moré, B. S. Garbow, K. E. Hillstrom, "Testing unconstrained
-optimization software", ACM Trans. Math. Software 7(1):17-41, 1981. Each
+optimization software", ACM Trans. Math. Software 7(1):17-41, 1981 (citation
+from memory). Each
 function is a sum of squares ``f(x) = sum_i r_i(x)^2`` (as in the paper) with
 the paper's standard starting point and exact, hand-derived Jacobians. The
 functions and their numbers in the paper:

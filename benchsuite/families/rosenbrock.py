@@ -1,7 +1,7 @@
 """The Rosenbrock function, 2-D and chained (non-convex).
 
 ``f(x) = sum_{i=1}^{d-1} 100 (x_{i+1} - x_i^2)^2 + (1 - x_i)^2`` (Rosenbrock 1960,
-The Computer Journal 3, 175-184, for ``d = 2``; the chained form for ``d > 2``
+The Computer Journal 3, 175-184, citation from memory, for ``d = 2``; the chained form for ``d > 2``
 is the one ``scipy.optimize.rosen`` evaluates). ``f >= 0`` with ``f = 0`` only at
 ``x* = (1, ..., 1)``: each term vanishes only if ``x_i = 1`` for ``i < d`` and
 ``x_d = x_{d-1}^2 = 1``. For ``d >= 4`` the chained form also has a local
@@ -65,7 +65,7 @@ class Rosenbrock(Problem):
         return Published(
             f=0.0,
             x=(1.0,) * self.dim,
-            source="Rosenbrock (1960), The Computer Journal 3:175-184 (2-D); chained form: f >= 0, zero only at ones",
+            source="Rosenbrock (1960), The Computer Journal 3:175-184 (2-D; from memory); chained form: f >= 0, zero only at ones",
             note="global minimum; for d >= 4 there is also a local minimum near x_1 = -1",
         )
 
