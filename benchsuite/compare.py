@@ -7,10 +7,12 @@ Both sides are measured in one run:
 2. **Timed replays, interleaved.** Per case, the target timed is the tightest
    target both sides reached (when neither reached any, both replay the same
    number of steps and the comparison is per step). Each side replays its own
-   k steps (``replay_seconds``) in pairs, the order alternating A B, B A, A B,
-   ... so that a linear drift of the machine's speed cancels within every two
-   pairs. Replays shorter than ``MIN_SAMPLE_SECONDS`` are repeated inside one
-   sample so the clock's resolution and call overhead stay negligible.
+   k steps (uninstrumented, like the runner's timing replay) in pairs, the
+   order alternating A B, B A, A B, ... so that a linear drift of the
+   machine's speed cancels within every two pairs, after ``WARMUP_PAIRS`` discarded pairs (the first samples of a
+   case run measurably slow: caches, allocator, frequency). Replays shorter
+   than ``MIN_SAMPLE_SECONDS`` are repeated inside one sample so the clock's
+   resolution and call overhead stay negligible.
    Time is the replaying process's **CPU time** by default (``clock="cpu"``,
    ``time.process_time``): for single-threaded code (BLAS is pinned to one
    thread) it equals the wall time on an idle machine, and it is not
@@ -74,6 +76,8 @@ __all__ = [
 
 #: a replay sample shorter than this is repeated within the sample
 MIN_SAMPLE_SECONDS = 0.02
+#: replay pairs run and discarded before the timed pairs of each case
+WARMUP_PAIRS = 2
 #: proportion cut from each end for the trimmed mean of log-ratios
 TRIM = 0.1
 CONFIDENCE = 0.95
@@ -475,6 +479,9 @@ def _measure(
             continue
         target, ka, kb = _timed_steps(ma, mb, inst.targets)
         inner_a, inner_b = _calibrate(a_side, i, ka, clock), _calibrate(b_side, i, kb, clock)
+        for _ in range(WARMUP_PAIRS):  # untimed: the first samples after a switch run slow
+            a_side.replay(i, ka, inner_a, clock)
+            b_side.replay(i, kb, inner_b, clock)
         ta: list[float] = []
         tb: list[float] = []
         for r in range(repeats):
