@@ -201,6 +201,7 @@ def ratio_interval(
         return math.exp(est), (math.exp(est), math.exp(est))
     with warnings.catch_warnings():  # a degenerate BCa interval is handled below
         warnings.simplefilter("ignore", DegenerateDataWarning)
+        warnings.simplefilter("ignore", RuntimeWarning)  # 0/0 in the acceleration of a degenerate sample
         res = bootstrap(
             (d,), _trimmed, confidence_level=CONFIDENCE, n_resamples=n_resamples, method="BCa",
             rng=np.random.default_rng(seed),

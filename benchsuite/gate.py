@@ -353,6 +353,20 @@ def gate_cases(
     return cases
 
 
+def _check_buildable(cases: Sequence[Any], baseline: Baseline) -> None:
+    """Build the candidate with each recorded hyperparameter set once: a mismatch is a usage error."""
+    from benchsuite.rulespec import build_rule
+
+    for spec in dict.fromkeys(c.rule for c in cases):
+        try:
+            build_rule(spec)
+        except UserError as exc:
+            raise UserError(
+                f"{exc} (the baseline {baseline.source} records the hyperparameters of {baseline.rule_label}; "
+                "the candidate must accept them)"
+            ) from None
+
+
 def run_gate(
     baseline: Baseline,
     rule: str,
@@ -376,6 +390,7 @@ def run_gate(
     catalogue = load_catalogue(list(catalogue_paths) or None)
     check_definitions(baseline, catalogue)
     cases = gate_cases(baseline, rule, overrides, catalogue)
+    _check_buildable(cases, baseline)
     limits = {} if timeout is None else {"timeout": timeout}
     results = run_cases(cases, jobs=jobs, timing=False, progress=False, **limits)
     candidates = [record_from_result(r) for r in results]

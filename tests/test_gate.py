@@ -333,6 +333,10 @@ def test_cli_baseline_and_gate_exit_codes(tmp_path: Path) -> None:
     js = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "base.json", "--json", "--jobs", "1")
     assert js.returncode == 0 and json.loads(js.stdout)["passed"] is True
 
+    wrong = _cli(tmp_path, "gate", "--rule", "gd", "--baseline", "base.json", "--jobs", "1")
+    assert wrong.returncode == 2 and "unknown hyperparameter(s) beta1, beta2, eps" in wrong.stderr
+    assert "records the hyperparameters of adam(lr=0.1)" in wrong.stderr
+
     missing = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "nope.json")
     assert missing.returncode == 2 and missing.stderr.strip() == "benchsuite: error: nope.json: baseline file not found"
     (tmp_path / "broken.json").write_text('{"schema": "benchsuite-baseline/1", "cases": [{}]}')
