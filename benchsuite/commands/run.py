@@ -73,6 +73,8 @@ def run(args: argparse.Namespace) -> int:
                           timing=not args.no_timing, out=args.out, resume=args.resume, progress=None)
     except RunInterrupted as exc:
         out = "" if args.out == "results" else f" --out {args.out}"
+        if sys.stderr.isatty():
+            print(file=sys.stderr)  # end the progress bar's line
         print(f"benchsuite: interrupted; finished cases kept, run {exc.run_id} marked partial; "
               f"resume with: benchsuite run --resume {exc.run_id}{out}", file=sys.stderr)
         return 130
