@@ -143,21 +143,29 @@ def test_minibatch_counts_gradients_and_epochs(lsq) -> None:
 
 # -- the theory bound over the catalogue -----------------------------------------------
 def test_measured_iterations_never_exceed_the_theory_bound(catalogue) -> None:
-    instances = [i for i in select(catalogue, None, tier="small") if i.family in ("quadratic", "least_squares", "ridge")]
-    for inst in instances:
-        certified_optimum(inst)
+    # every small-tier instance whose L and mu are known (exact or certified bounds)
+    instances = []
+    for inst in select(catalogue, None, tier="small"):
+        c = inst.build().constants()
+        if c.L is not None and c.mu:
+            certified_optimum(inst)
+            instances.append(inst)
+    quadratic = {"quadratic", "least_squares", "ridge"}
+    assert {i.family for i in instances} >= quadratic | {"logistic"}
     cases = [Case(i, parse_rule(r)) for i in instances for r in ("gd", "heavy_ball", "nesterov_sc")]
     results = run_cases(cases, jobs=2, timing=False, progress=False)
     with_bound = 0
     for r in results:
-        assert r.status == "reached", (r.case.key(), r.status)
         for j, b in enumerate(r.theory_bound):
-            if b is not None:
+            k = r.outcomes[0].iters[j]
+            if b is not None and k is not None:
                 with_bound += 1
-                assert r.outcomes[0].iters[j] <= b, (r.case.key(), j, r.outcomes[0].iters[j], b)
+                assert k <= b, (r.case.key(), j, k, b)
         assert not any(r.bound_violated())
-    # every quadratic-family case with its textbook parameters gets a bound for every target
-    assert with_bound == sum(len(r.case.run_targets) for r in results)
+        if r.case.instance.family in quadratic:
+            # textbook parameters on a quadratic: every target has a bound, and it is reached
+            assert r.status == "reached" and None not in r.theory_bound, r.case.key()
+    assert with_bound > 3 * 4 * len([i for i in instances if i.family in quadratic])  # logistic etc. add more
 
 
 # -- determinism --------------------------------------------------------------------------
