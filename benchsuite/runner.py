@@ -73,7 +73,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from benchsuite.errors import UserError
-from benchsuite.measures import MEASURES, make_measure
+from benchsuite.measures import make_measure
 from benchsuite.oracle import OracleSpec, gradient_function
 
 if TYPE_CHECKING:
