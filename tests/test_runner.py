@@ -13,6 +13,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from benchsuite.catalogue import load_catalogue, select
 from benchsuite.families.quadratic import Quadratic
@@ -100,6 +102,29 @@ def test_gd_first_crossings_equal_the_closed_form(spectrum: str, step: float) ->
         assert v == pytest.approx(r[2**i], rel=1e-9, abs=1e-300)
     assert out.iterations_run == max(k for k in out.iters if k is not None)
     assert out.status == ("reached" if all(k is not None for k in out.iters) else "partial")
+
+
+@given(
+    lam=st.lists(st.floats(0.01, 1.0), min_size=1, max_size=8),
+    step=st.floats(0.05, 1.9),
+    target=st.sampled_from([1e-1, 1e-3, 1e-6, 1e-9]),
+    seed=st.integers(0, 1000),
+)
+@settings(max_examples=40, deadline=None)
+def test_gd_first_crossing_property(lam: list[float], step: float, target: float, seed: int) -> None:
+    q = Quadratic(eigenvalues=lam, seed=seed)
+    lams = q.eigenvalues
+    lr = step / lams[-1]
+    e0 = q.initial_point() - q.x_star
+    budget = 3000
+    k_exact = next((k for k in range(budget + 1) if _closed_form_subopt(lams, e0, lr, k) <= target), None)
+    if k_exact is not None:
+        near = [_closed_form_subopt(lams, e0, lr, k) for k in {k_exact, max(k_exact - 1, 0)}]
+        # skip crossings within 1e-9 relative of the target (float64 round-off could flip them)
+        if any(abs(v - target) <= 1e-9 * target for v in near):
+            return
+    out = monitored_pass(q, faulty_rules.PlainGD(lr=lr), x_star=q.x_star, f_star=0.0, targets=[target], budget=budget)
+    assert out.iters[0] == k_exact
 
 
 def test_dist_and_gradnorm_crossings_equal_the_closed_form() -> None:
