@@ -46,6 +46,7 @@ stale.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import math
@@ -183,13 +184,18 @@ def _lookup_dirs(cache_dir: Path | None) -> list[Path]:
 
 def solver_versions() -> dict[str, str]:
     """Versions of the numerical packages (read from metadata, nothing imported)."""
-    out = {}
+    return dict(_versions())
+
+
+@functools.lru_cache(maxsize=1)
+def _versions() -> tuple[tuple[str, str], ...]:
+    out = []
     for name in _PACKAGES:
         try:
-            out[name] = metadata.version(name)
+            out.append((name, metadata.version(name)))
         except metadata.PackageNotFoundError:
-            out[name] = "absent"
-    return out
+            out.append((name, "absent"))
+    return tuple(out)
 
 
 def _file_digests(instance: Instance) -> dict[str, str]:
@@ -750,6 +756,7 @@ def _atomic_write(path: Path, write: Callable[[Any], None], mode: str = "w") -> 
     try:
         with os.fdopen(fd, mode) as fh:
             write(fh)
+        os.chmod(tmp, 0o644)  # mkstemp creates 0600; a cache is shared, readable data
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
