@@ -127,16 +127,19 @@ def _print(opt: Any) -> None:
 def run(args: argparse.Namespace) -> int:
     from benchsuite.optimum import certified_optimum
 
-    optima = [certified_optimum(i, cache_dir=args.cache_dir, refresh=args.refresh) for i in _instances(args)]
+    optima = []
+    for k, inst in enumerate(_instances(args)):
+        o = certified_optimum(inst, cache_dir=args.cache_dir, refresh=args.refresh)
+        optima.append(o)
+        if not args.json:  # one at a time: a cold catalogue-wide run shows progress
+            if k:
+                print()
+            _print(o)
+            sys.stdout.flush()
     if args.json:
         docs = [to_json(o) for o in optima]
         json.dump(docs[0] if len(docs) == 1 else docs, sys.stdout, indent=1)
         sys.stdout.write("\n")
-    else:
-        for k, o in enumerate(optima):
-            if k:
-                print()
-            _print(o)
     bad = [o.name for o in optima if not o.certified]
     if bad:
         print(f"benchsuite: not certified: {', '.join(bad)}", file=sys.stderr)
