@@ -9,10 +9,12 @@ The routes, chosen by what the family provides:
 * residual families (``f = sum r_i^2``): ``scipy.optimize.least_squares`` with
   the exact Jacobian, method ``trf`` and, independently, method ``lm``
   (MINPACK's Levenberg-Marquardt), both at ``xtol = ftol = gtol = 1e-15``;
-* other families: L-BFGS-B with tight tolerances, then a Newton polish with
-  ``trust-krylov`` when the family gives ``hessp`` (the gradient norm falls to
-  round-off); when no other route exists, a second, Newton-type or conjugate
-  gradient run from ``x0``;
+* other families: L-BFGS-B with tight tolerances, then, when the family gives
+  ``hessp``, a Newton polish (CG-solved Newton steps kept while the gradient
+  norm falls: trust-region codes stall there, as the predicted decrease in f
+  is below f's own round-off) that takes the gradient norm to round-off; for
+  a non-convex problem, or when no other route exists, a second, independent
+  run from ``x0`` (trust-ncg with ``hessp``, else nonlinear CG);
 * ``cvxpy``: every convex family with ``cvxpy_objective`` is solved by the
   Clarabel interior-point solver (SCS only when Clarabel fails, and the route
   says so), with the solver status and the duality gap ``|p - d|``;
@@ -22,7 +24,14 @@ The routes, chosen by what the family provides:
 Non-convex problems: the certified minimum is the published one when the
 family gives it (confirmed by the scipy routes from the instance's start, or
 else from the published point, which ``how`` says); otherwise the best of
-several seeded starts, certified when at least two starts reach it.
+:data:`N_STARTS` seeded starts, confirmed by an independent code run from the
+start that found it.
+
+Published values: every parameter must reach LRE >= 6 (or the printed digits
+less one), and ``f`` too, except that an ``f*`` at round-off level (NIST
+Lanczos1, 1.4e-25) is judged by the routes' own ``f`` tolerance; a printed
+``x`` that does not reproduce the printed ``f`` (a misprint, as in the
+shipped Roszman1 copy) is reported in ``how`` and not required.
 
 Agreement (all relative, ``S_f = max(|f*|, f(x0) - f*)`` and
 ``S_x = max(||x*||, ||x0 - x*||)``: the scales of the runner's relative
@@ -32,7 +41,9 @@ routes agree when ``|f_a - f_b| <= max(eps_a, eps_b) S_f`` and
 the strong-convexity inequality ``||x - x*||^2 <= (2/mu)(f - f*)`` combined
 with ``f(x0) - f* <= (L/2)||x0 - x*||^2``: a relative error ``eps`` in ``f``
 allows a relative error ``sqrt(eps * L/mu)`` in ``x``. Without a known
-``kappa`` the ``x`` tolerance is :data:`X_TOL_UNKNOWN_KAPPA`.
+``kappa`` the ``x`` tolerance is :data:`X_TOL_UNKNOWN_KAPPA`; it is never
+looser than :data:`X_TOL_MAX`. ``agreement_digits`` is ``-log10`` of the
+largest relative difference (x or f) over all pairs of agreeing routes.
 
 Cache: ``<cache_dir or ./results/reference>/<name>-<key12>.json``, where the
 key hashes the instance's ``problem_hash``, the content of any file its
