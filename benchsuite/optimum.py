@@ -41,7 +41,8 @@ routes agree when ``|f_a - f_b| <= max(eps_a, eps_b) S_f`` and
 the strong-convexity inequality ``||x - x*||^2 <= (2/mu)(f - f*)`` combined
 with ``f(x0) - f* <= (L/2)||x0 - x*||^2``: a relative error ``eps`` in ``f``
 allows a relative error ``sqrt(eps * L/mu)`` in ``x``. Without a known
-``kappa`` the ``x`` tolerance is :data:`X_TOL_UNKNOWN_KAPPA`; it is never
+``kappa`` it is ``max(X_TOL_UNKNOWN_KAPPA, sqrt(eps))`` (the same bound at
+``kappa = 1``, floored for codes that are better than their f accuracy); never
 looser than :data:`X_TOL_MAX`. ``agreement_digits`` is ``-log10`` of the
 largest relative difference (x or f) over all pairs of agreeing routes.
 
