@@ -39,11 +39,12 @@ imports its own version of the user's module; the parent sends the replay
 requests to the two processes in turn over pipes and removes the worktrees
 afterwards, also on error. Two processes are never quite identical (memory
 layout, allocator state): measured on a busy 2-core machine, six A/A
-comparisons of one revision against itself in two processes gave ratios
-from 0.92 to 1.02, two of them with intervals excluding 1. The interval
-covers the noise within one run, not this per-process effect of a few
-percent: read a cross-revision difference below ~10 % as unconfirmed, and
-rerun the comparison to see whether it holds.
+comparisons of one revision against itself in one pair of processes gave
+ratios from 0.92 to 1.02, two of them with intervals excluding 1. So the
+pairs are spread over ``ROUNDS`` successive pairs of fresh processes, which
+averages this per-process effect; the interval still treats the pairs as
+independent, so read a cross-revision difference of a few percent as
+unconfirmed and rerun the comparison to see whether it holds.
 """
 
 from __future__ import annotations
@@ -82,6 +83,8 @@ __all__ = [
 
 #: a replay sample shorter than this is repeated within the sample
 MIN_SAMPLE_SECONDS = 0.02
+#: git-revision comparisons: successive pairs of fresh worker processes
+ROUNDS = 3
 #: replay pairs run and discarded before the timed pairs of each case
 WARMUP_PAIRS = 2
 #: proportion cut from each end for the trimmed mean of log-ratios
@@ -470,40 +473,29 @@ def _calibrate(side: Any, index: int, k: int, clock: str) -> int:
     return max(1, math.ceil(MIN_SAMPLE_SECONDS / t))
 
 
-def _measure(
-    a_side: Any, b_side: Any, mon_a: list[_Monitored], mon_b: list[_Monitored], instances: Sequence[Any],
-    repeats: int, clock: str,
-) -> list[CaseComparison]:
-    out = []
-    for i, inst in enumerate(instances):
-        ma, mb = mon_a[i], mon_b[i]
-        bad = {"diverged", "error", "timeout"}
-        if ma.status in bad or mb.status in bad:
-            out.append(
-                CaseComparison(inst.name, ma.status, mb.status, None, None, None, (), (), None, None,
-                               "not timed: a side diverged, raised or timed out")
-            )
-            continue
-        target, ka, kb = _timed_steps(ma, mb, inst.targets)
-        inner_a, inner_b = _calibrate(a_side, i, ka, clock), _calibrate(b_side, i, kb, clock)
-        for _ in range(WARMUP_PAIRS):  # untimed: the first samples after a switch run slow
-            a_side.replay(i, ka, inner_a, clock)
-            b_side.replay(i, kb, inner_b, clock)
-        ta: list[float] = []
-        tb: list[float] = []
-        for r in range(repeats):
-            if r % 2 == 0:
-                ta.append(a_side.replay(i, ka, inner_a, clock) / inner_a)
-                tb.append(b_side.replay(i, kb, inner_b, clock) / inner_b)
-            else:
-                tb.append(b_side.replay(i, kb, inner_b, clock) / inner_b)
-                ta.append(a_side.replay(i, ka, inner_a, clock) / inner_a)
-        ratio, ci = ratio_interval(ta, tb, seed=i)
-        out.append(
-            CaseComparison(inst.name, ma.status, mb.status, target, ka, kb, tuple(ta), tuple(tb), ratio, ci,
-                           _note(target, ka, kb))
-        )
-    return out
+def _pairs(
+    a_side: Any, b_side: Any, i: int, ka: int, kb: int, repeats: int, clock: str
+) -> tuple[list[float], list[float]]:
+    """``repeats`` interleaved replay pairs of case ``i`` after the warm-up pairs (seconds per replay)."""
+    inner_a, inner_b = _calibrate(a_side, i, ka, clock), _calibrate(b_side, i, kb, clock)
+    for _ in range(WARMUP_PAIRS):  # untimed: the first samples after a switch run slow
+        a_side.replay(i, ka, inner_a, clock)
+        b_side.replay(i, kb, inner_b, clock)
+    ta: list[float] = []
+    tb: list[float] = []
+    for r in range(repeats):
+        if r % 2 == 0:
+            ta.append(a_side.replay(i, ka, inner_a, clock) / inner_a)
+            tb.append(b_side.replay(i, kb, inner_b, clock) / inner_b)
+        else:
+            tb.append(b_side.replay(i, kb, inner_b, clock) / inner_b)
+            ta.append(a_side.replay(i, ka, inner_a, clock) / inner_a)
+    return ta, tb
+
+
+def _shares(total: int, parts: int) -> list[int]:
+    """``total`` split into ``parts`` near-equal positive shares."""
+    return [total // parts + (1 if j < total % parts else 0) for j in range(parts)]
 
 
 def compare(
@@ -520,14 +512,25 @@ def compare(
     catalogue_paths: Sequence[str | Path] = (),
     cwd: str | Path | None = None,
     clock: str = "cpu",
+    rounds: int | None = None,
 ) -> Comparison:
-    """Measure B against A on the selected problems (see the module docstring)."""
+    """Measure B against A on the selected problems (see the module docstring).
+
+    ``rounds`` (git revisions only; default ``ROUNDS``): the replay pairs of
+    each case are spread over this many successive pairs of fresh worker
+    processes, so that a per-process effect is averaged instead of taken
+    from one pair of processes.
+    """
     from benchsuite.catalogue import load_catalogue, select
 
     if clock not in CLOCKS:
         raise UserError(f"--clock: {clock!r} is not one of {', '.join(CLOCKS)}")
     if repeats < 2:
         raise UserError(f"--repeats: need at least 2 replay pairs, got {repeats}")
+    workers = a.rev is not None or b.rev is not None
+    rounds = (ROUNDS if workers else 1) if rounds is None else rounds
+    if rounds < 1 or (workers and repeats < 2 * rounds):
+        raise UserError(f"--rounds: need 1 <= rounds <= repeats/2, got {rounds} for {repeats} pairs")
     instances = tuple(select(load_catalogue(list(catalogue_paths) or None), problems, tier))
     if not instances:
         raise UserError("--problems: no instance selected")
@@ -537,23 +540,56 @@ def compare(
         params = tuple(sorted(side.params.items())) if isinstance(side.params, Mapping) else tuple(side.params)
         return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs)
 
-    with ExitStack() as stack:
-        sides: list[Any] = []
-        for side in (a, b):
-            if a.rev is None and b.rev is None:
-                sides.append(_LocalSide())
-                continue
-            front = stack.enter_context(worktree(side.rev, here)) if side.rev else here
-            worker = _WorkerSide(front, here)
-            stack.callback(worker.close)
-            sides.append(worker)
-        mon_a = sides[0].setup(setup(a))
-        mon_b = sides[1].setup(setup(b))
-        cases = _measure(sides[0], sides[1], mon_a, mon_b, instances, repeats, clock)
+    times: list[tuple[list[float], list[float]]] = [([], []) for _ in instances]
+    with ExitStack() as trees:
+        fronts = [trees.enter_context(worktree(s.rev, here)) if s.rev else here for s in (a, b)] if workers else []
+        for round_no, share in enumerate(_shares(repeats, rounds)):
+            with ExitStack() as procs:
+                sides: list[Any] = []
+                for front in fronts or [None, None]:
+                    side = _LocalSide() if front is None else _WorkerSide(front, here)
+                    procs.callback(side.close)
+                    sides.append(side)
+                mon_a, mon_b = sides[0].setup(setup(a)), sides[1].setup(setup(b))
+                new_plan = [_plan(inst, ma, mb) for inst, ma, mb in zip(instances, mon_a, mon_b)]
+                if round_no and [p[1:3] for p in new_plan] != [p[1:3] for p in plan]:
+                    raise RuntimeError("the monitored passes differ between rounds: the rules are not deterministic")
+                plan = new_plan
+                for i, (target, ka, kb, _) in enumerate(plan):
+                    if target is not _SKIP:
+                        ta, tb = _pairs(sides[0], sides[1], i, ka, kb, share, clock)
+                        times[i][0].extend(ta)
+                        times[i][1].extend(tb)
+    cases = []
+    for i, (inst, (target, ka, kb, note)) in enumerate(zip(instances, plan)):
+        ma, mb = mon_a[i], mon_b[i]
+        if target is _SKIP:
+            cases.append(CaseComparison(inst.name, ma.status, mb.status, None, None, None, (), (), None, None, note))
+            continue
+        ta, tb = times[i]
+        ratio, ci = ratio_interval(ta, tb, seed=i)
+        cases.append(CaseComparison(inst.name, ma.status, mb.status, target, ka, kb, tuple(ta), tuple(tb), ratio, ci,
+                                    note))
     timed = [(c.times_a, c.times_b) for c in cases if c.ratio is not None]
     ratio, ci = overall_interval(timed) if timed else (None, None)
-    method = Comparison.__dataclass_fields__["method"].default
-    return Comparison(a.label, b.label, tuple(cases), ratio, ci, repeats, method=f"{method}; clock: {CLOCKS[clock]}")
+    method = Comparison.__dataclass_fields__["method"].default + f"; clock: {CLOCKS[clock]}"
+    if workers:
+        method += f"; {rounds} rounds of fresh worker processes"
+    return Comparison(a.label, b.label, tuple(cases), ratio, ci, repeats, method=method)
+
+
+_SKIP = object()
+
+
+def _plan(inst: Any, ma: _Monitored, mb: _Monitored) -> tuple[Any, int, int, str]:
+    """(target, k_A, k_B, note) of one case; target ``_SKIP`` when it cannot be timed."""
+    if ma.status in _UNTIMED or mb.status in _UNTIMED:
+        return _SKIP, 0, 0, "not timed: a side diverged, raised or timed out"
+    target, ka, kb = _timed_steps(ma, mb, inst.targets)
+    return target, ka, kb, _note(target, ka, kb)
+
+
+_UNTIMED = ("diverged", "error", "timeout")
 
 
 def _run_table(out: str | Path, run_id: str) -> Any:

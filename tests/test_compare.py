@@ -283,3 +283,11 @@ def test_compare_saved_runs(tmp_path: Path) -> None:
         (tmp_path / "runs" / "mixed" / "table.csv").read_text() + "q,gd,0,1,0.0001,30,3.0,reached\n")
     with pytest.raises(UserError, match="holds 2 rules"):
         compare_runs("r1", "mixed", out=tmp_path)
+
+
+def test_pairs_are_shared_out_over_rounds() -> None:
+    from benchsuite.compare import _shares
+
+    assert _shares(31, 3) == [11, 10, 10] and sum(_shares(41, 4)) == 41 and _shares(5, 1) == [5]
+    with pytest.raises(UserError, match="--rounds"):
+        compare(Side("adam"), Side("adam", rev="HEAD"), repeats=4, rounds=3)

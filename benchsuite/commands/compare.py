@@ -20,6 +20,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--catalogue", action="append", default=[], metavar="PATH", help="extra catalogue file or folder")
     p.add_argument("--batch", type=int, default=None, help="minibatch size (default: full gradient)")
     p.add_argument("--repeats", type=int, default=31, help="timed replay pairs per case (default 31)")
+    p.add_argument("--rounds", type=int, default=None,
+                   help="git revisions: spread the pairs over this many pairs of fresh processes (default 3)")
     p.add_argument("--clock", choices=("cpu", "wall"), default="cpu",
                    help="time replays by process CPU time (default; robust on a busy machine) or wall time")
     p.add_argument("--jobs", type=int, default=None, help="worker processes for the monitored passes")
@@ -48,6 +50,7 @@ def run(args: argparse.Namespace) -> int:
             Side(b, tuple(args.param_b), args.rev_b),
             problems=args.problems, tier=args.tier, oracle="full" if args.batch is None else "minibatch",
             batch=args.batch, repeats=args.repeats, jobs=args.jobs, catalogue_paths=args.catalogue, clock=args.clock,
+            rounds=args.rounds,
         )
     if args.markdown:
         atomic_write_text(Path(args.markdown), compare_markdown(result))
