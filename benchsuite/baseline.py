@@ -141,7 +141,7 @@ def record_from_result(result: Any) -> CaseRecord:
             final_dist=float(o.final_dist),
             iterations_run=int(o.iterations_run),
             fingerprint=tuple(float(v) for v in o.fingerprint),
-            error=None if o.error is None else str(o.error).strip().splitlines()[-1],
+            error=None if o.error is None else (str(o.error).strip().splitlines() or [""])[-1],
         )
         for o in result.outcomes
     )

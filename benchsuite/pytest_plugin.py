@@ -71,7 +71,7 @@ def assert_converges(
                 continue
             why = f"{o.status} after {o.iterations_run} iterations"
             if o.error:
-                why += f" ({o.error.strip().splitlines()[-1]})"
+                why += f" ({(o.error.strip().splitlines() or [''])[-1]})"
             lines.append(
                 f"  {r.case.instance.name} seed {o.seed}: {why}; targets: {_fmt_iters(targets, o.iters)}; "
                 f"final measure {o.final_measure:.3g}"

@@ -70,7 +70,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _why(result: Any) -> str:
-    errors = [o.error.strip().splitlines()[-1] for o in result.outcomes if o.error]
+    errors = [(o.error.strip().splitlines() or [""])[-1] for o in result.outcomes if o.error]
     return f": {errors[0]}" if errors else ""
 
 
