@@ -260,3 +260,24 @@ def test_strd_bad_files(tmp_path: Path) -> None:
     with pytest.raises(UserError) as info:
         instance_from_strd(junk)
     assert "junk.dat" in str(info.value) and "\n" not in str(info.value)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(min_value=-1.0, max_value=1.0, allow_nan=False, allow_infinity=False), min_size=1, max_size=5),
+       st.integers(-3, 3))
+def test_targets_and_budget_accepted_exactly_when_valid(targets: list[float], budget: int) -> None:
+    """Law: an entry loads iff targets are > 0 and strictly decreasing and budget > 0."""
+    import tempfile
+
+    valid = all(t > 0 for t in targets) and all(b < a for a, b in zip(targets, targets[1:])) and budget > 0
+    with tempfile.TemporaryDirectory() as d:
+        f = Path(d) / "t.toml"
+        f.write_text(entry(targets=targets, budget=budget))
+        try:
+            cat = load_catalogue([f])
+        except UserError as exc:
+            assert not valid, str(exc)
+            assert "\n" not in str(exc) and ("targets" in str(exc) or "budget" in str(exc))
+        else:
+            assert valid
+            assert cat["x"].targets == tuple(targets) and cat["x"].budget == budget
