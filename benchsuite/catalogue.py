@@ -131,16 +131,22 @@ class Instance:
         except (ValueError, TypeError) as exc:
             raise UserError(f"{self._where('params')}: {exc}") from None
 
+    def _identity(self) -> dict[str, Any]:
+        """Family, params and -- for families that read files -- a digest of the data."""
+        payload: dict[str, Any] = {"family": self.family, "params": dict(self.params)}
+        digest = self.family_class().data_digest(self.params_dict())
+        if digest is not None:
+            payload["data"] = digest
+        return payload
+
     def problem_hash(self) -> str:
-        """sha256 of the canonical JSON of ``(family, params)``: the objective's identity."""
-        payload = {"family": self.family, "params": dict(self.params)}
-        return hashlib.sha256(_canonical(payload).encode()).hexdigest()
+        """sha256 of the canonical JSON of ``(family, params[, data digest])``: the objective's identity."""
+        return hashlib.sha256(_canonical(self._identity()).encode()).hexdigest()
 
     def definition_hash(self) -> str:
         """sha256 of everything that defines a benchmark case except name, source and tier."""
         payload = {
-            "family": self.family,
-            "params": dict(self.params),
+            **self._identity(),
             "targets": list(self.targets),
             "budget": self.budget,
             "measure": self.measure,

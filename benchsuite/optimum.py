@@ -47,8 +47,8 @@ looser than :data:`X_TOL_MAX`. ``agreement_digits`` is ``-log10`` of the
 largest relative difference (x or f) over all pairs of agreeing routes.
 
 Cache: ``<cache_dir or ./results/reference>/<name>-<key12>.json``, where the
-key hashes the instance's ``problem_hash``, the content of any file its
-parameters name, the versions of numpy / scipy / cvxpy / Clarabel / SCS and
+key hashes the instance's ``problem_hash`` (which covers the content of any
+data file the problem reads, see ``Problem.data_digest``), the versions of numpy / scipy / cvxpy / Clarabel / SCS and
 the certificate format. Plain JSON (floats by ``repr``, exact round trip);
 ``x*`` of more than :data:`NPZ_MIN_DIM` coordinates goes to an ``.npz``
 (``allow_pickle=False``) beside it. Writes are atomic. A cached entry is
@@ -210,19 +210,10 @@ def _versions() -> tuple[tuple[str, str], ...]:
     return tuple(out)
 
 
-def _file_digests(instance: Instance) -> dict[str, str]:
-    out = {}
-    for key, value in instance.params:
-        if isinstance(value, str) and len(value) < 4096 and os.path.isfile(value):
-            out[key] = hashlib.sha256(Path(value).read_bytes()).hexdigest()
-    return out
-
-
 def cache_key(instance: Instance) -> str:
     payload = {
         "format": FORMAT,
-        "problem": instance.problem_hash(),
-        "files": _file_digests(instance),
+        "problem": instance.problem_hash(),  # includes a digest of any data file it reads
         "versions": solver_versions(),
     }
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()

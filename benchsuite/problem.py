@@ -114,6 +114,29 @@ class Problem(ABC):
     def initial_point(self) -> np.ndarray:
         """A fresh copy of the deterministic starting point."""
 
+    @classmethod
+    def data_digest(cls, params: dict[str, Any]) -> str | None:
+        """A digest of external data files the family reads for these params.
+
+        Families that read files (e.g. a NIST StRD file) return a hash of the
+        bytes, so that the catalogue's hashes -- and with them the reference
+        cache and the gate's "definition changed" check -- follow the data,
+        not only the parameters. The default hashes every string parameter that
+        names an existing file; ``None`` when there is none.
+        """
+        import hashlib
+        import os
+
+        h = hashlib.sha256()
+        found = False
+        for key in sorted(params):
+            value = params[key]
+            if isinstance(value, str) and len(value) < 4096 and os.path.isfile(value):
+                with open(value, "rb") as fh:
+                    h.update(key.encode() + b"\0" + fh.read())
+                found = True
+        return h.hexdigest() if found else None
+
     # -- what is known about it ------------------------------------------
     def constants(self) -> Constants:
         """L and mu where known; default: unknown."""

@@ -36,7 +36,6 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from scipy.special import expit
 
 from benchsuite.families.least_squares import positive_int
 from benchsuite.problem import Constants, Problem, as_dtype
@@ -258,6 +257,8 @@ class Logistic(_Features):
         )
 
     def hessp(self, x: np.ndarray, v: np.ndarray) -> np.ndarray:
+        from scipy.special import expit
+
         x = np.asarray(x, dtype=np.float64)
         v = np.asarray(v, dtype=np.float64)
         p = expit(self.y64 * (self.A64 @ x))

@@ -60,6 +60,18 @@ class NistStrd(ResidualProblem):
         self._t = self.data.response_value()
         self._model = BoundModel(self.data.model, self.data.columns())  # data-only subtrees folded once
 
+    @classmethod
+    def data_digest(cls, params: dict[str, Any]) -> str | None:
+        """sha256 of the StRD file's bytes (a corrected or edited file is a new problem)."""
+        import hashlib
+
+        dataset, file = params.get("dataset"), params.get("file")
+        try:
+            path = shipped_path(dataset) if dataset is not None else Path(str(file))
+            return hashlib.sha256(path.read_bytes()).hexdigest()
+        except (OSError, ValueError):
+            return None  # the constructor reports the bad path with its location
+
     @property
     def name(self) -> str:
         return self.data.name
