@@ -120,8 +120,14 @@ def _print(opt: Any) -> None:
         pub = opt.published
         print(f"  published ({pub.source}): f = {pub.f!r}" + ("" if pub.x is None else f", x = {_vector(pub.x)}"))
         if opt.lre:
-            per = "  ".join(f"{k} {v:.1f}" for k, v in opt.lre.items() if k != "min")
-            print(f"  LRE: {per}   min {opt.lre['min']:.1f}")
+            items = [(k, v) for k, v in opt.lre.items() if k != "min"]
+            if len(items) > 12:  # large d: the worst few, --json has them all
+                items = sorted(items, key=lambda kv: kv[1])[:6]
+                label = f"LRE (worst 6 of {len(opt.lre) - 1}; --json for all)"
+            else:
+                label = "LRE"
+            per = "  ".join(f"{k} {v:.1f}" for k, v in items)
+            print(f"  {label}: {per}   min {opt.lre['min']:.1f}")
 
 
 def run(args: argparse.Namespace) -> int:
