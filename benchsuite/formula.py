@@ -387,7 +387,7 @@ def _eval(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray], folded: _Fo
     if id(node) in folded:
         return folded[id(node)]
     if isinstance(node, Num | Const):
-        return node.value
+        return np.float64(node.value)  # numpy scalar: x/0 gives inf, as on arrays, not ZeroDivisionError
     if isinstance(node, Param):
         return _param(b, node.index)
     if isinstance(node, Var):
@@ -438,7 +438,7 @@ def _forward(node: Node, b: np.ndarray, data: Mapping[str, np.ndarray], folded: 
     if id(node) in folded:
         return folded[id(node)], {}
     if isinstance(node, Num | Const):
-        return node.value, {}
+        return np.float64(node.value), {}
     if isinstance(node, Param):
         return _param(b, node.index), {node.index - 1: 1.0}
     if isinstance(node, Var):

@@ -344,3 +344,11 @@ def test_bound_model_folding_and_rows_change_nothing(expr, rows) -> None:
 def test_folding_precomputes_data_only_subtrees() -> None:
     bound = BoundModel(parse("b1*cos(2*pi*x/12) + b2*x**2"), {"x": np.arange(4.0)})
     assert sorted(np.ndim(v) for v in bound.folded.values()) == [1, 1]  # cos(2 pi x / 12) and x**2
+
+
+def test_division_by_a_constant_zero_gives_inf_not_an_exception() -> None:
+    # found by hypothesis: constant subtrees were Python floats, so 1/(0.5-0.5)
+    # raised ZeroDivisionError where numpy arrays give inf (IEEE 754 division)
+    tree = parse("b1 / ([0.5] - [0.5])")
+    value, J = value_and_jacobian(tree, np.array([1.0]), {"x": np.ones(3)})
+    assert np.all(np.isinf(value)) and np.all(np.isinf(J[:, 0]))
