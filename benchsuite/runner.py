@@ -507,7 +507,9 @@ def _run_passes(
     if not tasks:
         return
     ctx = _context()
-    todo = list(range(len(tasks)))
+    # largest iteration budget first (a stable sort): long passes start early, so the
+    # last worker to finish is not left alone with one (results do not depend on order)
+    todo = sorted(range(len(tasks)), key=lambda t: -tasks[t][0].run_budget)
     todo.reverse()
     workers = [_Worker(ctx, threads) for _ in range(min(jobs, len(tasks)))]
     pending = len(tasks)
