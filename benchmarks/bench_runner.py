@@ -8,8 +8,9 @@
    d = 1e4 and 1e5 and on Rosenbrock 2-D. Bare and suite runs alternate
    (7 rounds); medians are compared. Aims: replay <= 1.03x at d >= 1e4,
    <= 1.5x at d = 2.
-2. ``--e2e``: the default ``benchsuite run`` end to end in a fresh folder,
-   cold (empty reference cache) then warm; and the monitored passes alone
+2. ``--e2e``: the default ``benchsuite run`` end to end in a fresh folder
+   with the warm reference cache, the small tier's references recomputed
+   cold (the extra time of a cold run); and the monitored passes alone
    (``--no-timing``) with ``--jobs 1`` and ``--jobs 2`` (aim >= 1.8x).
 
 Run: ``.venv/bin/python benchmarks/bench_runner.py [--e2e]``. BLAS is pinned
@@ -33,7 +34,8 @@ from pathlib import Path
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from benchsuite.catalogue import Instance
+from benchsuite.catalogue import Instance, load_catalogue, select
+from benchsuite.optimum import certified_optimum
 from benchsuite.rulespec import build_rule, parse_rule
 from benchsuite.runner import Case, monitored_pass, replay_times
 
@@ -154,10 +156,16 @@ def end_to_end() -> None:
     work = Path(tempfile.mkdtemp(prefix="bench-runner-"))
     try:
         print(f"load average: {os.getloadavg()}")
-        cold = _timed_cli(["--out", "out"], work)
-        print(f"default `benchsuite run`, cold reference cache: {cold:7.1f} s")
+        # the optimum module also finds the repository's committed references, so a cold
+        # run is timed as: every small-tier reference recomputed into an empty folder,
+        # plus the warm run
+        t0 = time.perf_counter()
+        for inst in select(load_catalogue(), None, tier="small"):
+            certified_optimum(inst, cache_dir=work / "cold-reference", refresh=True)
+        refs = time.perf_counter() - t0
         warm = _timed_cli(["--out", "out"], work)
         print(f"default `benchsuite run`, warm reference cache: {warm:7.1f} s")
+        print(f"small-tier references computed cold (one process): {refs:.1f} s; cold run <= {warm + refs:.1f} s")
         one = _timed_cli(["--out", "out", "--no-timing", "--jobs", "1"], work)
         two = _timed_cli(["--out", "out", "--no-timing", "--jobs", "2"], work)
         print(f"monitored passes only: --jobs 1 {one:6.1f} s, --jobs 2 {two:6.1f} s, speed-up {one / two:.2f}x")
