@@ -142,6 +142,9 @@ class Rule:
     torch_class: ClassVar[str | None] = None
     torch_convention: ClassVar[dict[str, Any]] = {}
     torch_preset: ClassVar[dict[str, Any]] = {}
+    #: with its defaults, the rule's fixed points are the minimisers of f (so it
+    #: can reach a certified optimum); False e.g. for decoupled weight decay
+    seeks_minimiser: ClassVar[bool] = True
 
     @classmethod
     def param_names(cls) -> tuple[str, ...]:
@@ -670,6 +673,7 @@ class AdamW(Adam):
     torch_class = "AdamW"
     torch_convention = {"decay_scaled_by_lr": True}
     torch_preset = {"decay_scaled_by_lr": True, "weight_decay": 1e-2}
+    seeks_minimiser = False  # the decay term moves the fixed point off the minimiser of f
 
     def __init__(
         self,
@@ -881,6 +885,11 @@ BUILTIN_RULES: dict[str, type[Rule]] = {
     cls.name: cls
     for cls in (GD, HeavyBall, Nesterov, NesterovSC, AdaGrad, RMSProp, AdaDelta, Adam, AdamW, AMSGrad, Adamax, NAdam)
 }
+
+#: the rules ``benchsuite run`` uses when none is named: every built-in rule
+#: whose defaults aim at the minimiser of f (AdamW's decoupled weight decay
+#: converges elsewhere, so it could never reach a certified optimum)
+DEFAULT_RULES: tuple[str, ...] = tuple(name for name, cls in BUILTIN_RULES.items() if cls.seeks_minimiser)
 
 
 # -- torch.optim mapping ---------------------------------------------------------

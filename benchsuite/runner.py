@@ -869,7 +869,7 @@ def to_frame(results: Sequence[CaseResult], selected: Mapping[str, bool] | None 
 class RunRequest:
     """What to run, as plain data (stored in ``meta.json`` so ``--resume`` can rebuild the cases)."""
 
-    rules: tuple[str, ...] = ()            # empty: every built-in rule
+    rules: tuple[str, ...] = ()            # empty: rules.DEFAULT_RULES
     params: tuple[tuple[str, Any], ...] = ()  # applied to every rule
     problems: str | None = None
     tier: str | None = "small"
@@ -936,7 +936,7 @@ class Plan:
 def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") -> Plan:
     """Turn a request into cases (validating everything the user gave: ``UserError``)."""
     from benchsuite.catalogue import load_catalogue, select
-    from benchsuite.rules import BUILTIN_RULES
+    from benchsuite.rules import DEFAULT_RULES
     from benchsuite.rulespec import build_rule, parse_rule
     from benchsuite.sweep import parse_sweep, selection_table
 
@@ -944,7 +944,7 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
     instances = select(cat, req.problems, tier=req.tier)
     if not instances:
         raise UserError(f"no problems selected (--problems {req.problems!r}, --tier {req.tier})")
-    names = list(req.rules) or list(BUILTIN_RULES)
+    names = list(req.rules) or list(DEFAULT_RULES)
     for name in names:
         parse_rule(name)  # an unknown rule fails here, before any work
     chosen: dict[tuple[str, str], dict[str, Any]] = {}

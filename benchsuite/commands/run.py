@@ -22,7 +22,8 @@ HELP = "run update rules on catalogue problems: iterations, gradient calls and w
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rule", action="append", default=[], metavar="R",
-                   help="built-in rule name or package.module:attribute (repeatable; default: every built-in rule)")
+                   help="built-in rule name or package.module:attribute (repeatable; default: every "
+                        "built-in rule except adamw, whose weight decay moves the minimiser)")
     p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
                    help="hyperparameter, applied to every --rule given (repeatable)")
     p.add_argument("--problems", metavar="SELECTOR",
@@ -133,6 +134,19 @@ def _grid(rows: list[list[str]]) -> list[str]:
     return ["  " + "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip() for r in rows]
 
 
+def _summary(by_inst: dict[str, list[Any]]) -> list[str]:
+    """One line per rule: on how many instances it ended with each status."""
+    statuses = ("reached", "partial", "budget", "diverged", "error", "timeout")
+    counts: dict[str, dict[str, int]] = {}
+    for rs in by_inst.values():
+        for r in rs:
+            row = counts.setdefault(r.case.rule.label, dict.fromkeys(statuses, 0))
+            row[r.status] = row.get(r.status, 0) + 1
+    used = [s for s in statuses if any(c[s] for c in counts.values())]
+    rows = [["rule", *used]] + [[label, *(str(c[s]) for s in used)] for label, c in counts.items()]
+    return [f"summary over {len(by_inst)} instances (cases by status)", *_grid(rows), ""]
+
+
 def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = ()) -> str:
     """Per instance: one line per rule with status, iterations (theory bound), time per step, time to the tightest target.
 
@@ -171,6 +185,8 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
                     break
         lines.extend(_grid(rows))
         lines.append("")
+    if len(by_inst) > 1:
+        lines.extend(_summary(by_inst))
     if violated:
         lines.append("! a measured count above its published bound: a bug in the rule, the constants or the runner")
     if problems:
