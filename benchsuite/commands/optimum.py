@@ -89,7 +89,7 @@ def _vector(x: Any) -> str:
 
 
 def _g(v: float | None) -> str:
-    return "-" if v is None else f"{v:.3g}"
+    return "unknown" if v is None or v != v else f"{v:.3g}"  # v != v: NaN
 
 
 def _print(opt: Any) -> None:
