@@ -1162,8 +1162,8 @@ def run(
 ) -> pd.DataFrame:
     """Run rules on catalogue problems and return the tidy table (one row per case x seed x target).
 
-    ``rules``: built-in names or ``package.module:attr`` (default: every
-    built-in rule); ``params``: ``name=value`` strings or a mapping, applied
+    ``rules``: built-in names or ``package.module:attr`` (default:
+    :data:`benchsuite.rules.DEFAULT_RULES`); ``params``: ``name=value`` strings or a mapping, applied
     to every rule; ``problems``: a selector (names, globs, a StRD file path);
     ``tier``: small / medium / large (``None``: every tier); ``catalogue``:
     extra catalogue files or folders; ``batch``: minibatch size (finite-sum
