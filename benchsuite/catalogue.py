@@ -193,10 +193,12 @@ def _unknown_message(where: str, family: str, cls: type, unknown: list[str]) -> 
 
 # -- reading files -----------------------------------------------------------
 def builtin_dir() -> Path:
-    """The built-in catalogue folder: ``problems/`` next to the package."""
+    """The built-in catalogue folder: ``problems/`` of the source tree, or the copy a wheel installs."""
     import benchsuite
 
-    return Path(benchsuite.__file__).resolve().parents[1] / "problems"
+    package = Path(benchsuite.__file__).resolve().parent
+    source_tree = package.parent / "problems"
+    return source_tree if source_tree.is_dir() else package / "_catalogue"
 
 
 def _files(path: Path) -> list[Path]:

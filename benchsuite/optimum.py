@@ -181,12 +181,13 @@ def default_cache_dir() -> Path:
 
 def _lookup_dirs(cache_dir: Path | None) -> list[Path]:
     """Folders searched for an entry: the given one; by default ``./results/reference``
-    and then the repository's committed ``results/reference`` (found next to the package)."""
+    and then the committed ``results/reference`` (of the source tree, or the copy a wheel installs)."""
     if cache_dir is not None:
         return [Path(cache_dir)]
     import benchsuite
 
-    dirs = [default_cache_dir(), Path(benchsuite.__file__).resolve().parents[1] / "results" / "reference"]
+    package = Path(benchsuite.__file__).resolve().parent
+    dirs = [default_cache_dir(), package.parent / "results" / "reference", package / "_reference"]
     out: list[Path] = []
     for d in dirs:
         if d.is_dir() and all(d.resolve() != o.resolve() for o in out):
