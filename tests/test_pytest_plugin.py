@@ -96,3 +96,17 @@ def test_bad_baseline_path_is_one_clear_line(user: pytest.Pytester) -> None:
     res = user.runpytest("-q")
     res.assert_outcomes(failed=1)
     res.stdout.fnmatch_lines(["*UserError: nope.json: baseline file not found*"])
+
+
+def test_the_readme_example_test_file_passes() -> None:
+    """examples/kestrel/test_kestrel_optim.py, run from the example's folder as its team would."""
+    import subprocess
+    import sys
+
+    kestrel = REPO / "examples" / "kestrel"
+    proc = subprocess.run(
+        [sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider", "test_kestrel_optim.py"],
+        cwd=kestrel, capture_output=True, text=True, timeout=300,
+    )
+    assert proc.returncode == 0, proc.stdout[-2000:] + proc.stderr[-2000:]
+    assert "2 passed" in proc.stdout
