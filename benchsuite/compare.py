@@ -56,7 +56,6 @@ import shutil
 import subprocess
 import sys
 import tempfile
-import time
 import traceback
 import warnings
 from collections.abc import Mapping, Sequence
@@ -291,34 +290,10 @@ class _Engine:
 
     def replay(self, index: int, k: int, inner: int, clock: str = "cpu") -> float:
         """Seconds of ``inner`` uninstrumented replays of ``k`` steps (see ``CLOCKS``)."""
+        from benchsuite.runner import replay_seconds
+
         case, hyper, seed = self.cases[index], self.hyper[index], self.cases[index].seeds[0]
-        if clock == "wall":
-            from benchsuite.runner import replay_seconds
-
-            return sum(replay_seconds(case, hyper, seed, k) for _ in range(inner))
-        return sum(_cpu_replay(case, hyper, seed, k) for _ in range(inner))
-
-
-def _cpu_replay(case: Any, hyperparams: Mapping[str, Any], seed: int, k: int) -> float:
-    """Process CPU seconds of one uninstrumented replay of ``k`` steps.
-
-    The same loop as the runner's timing replay (fresh rule, seeded gradient
-    oracle and start point built outside the timed region, BLAS pinned to one
-    thread), timed with ``time.process_time``.
-    """
-    from threadpoolctl import threadpool_limits
-
-    from benchsuite.runner import _built, _fresh
-
-    built = _built(case.instance, with_optimum=False)
-    rule, grad, x = _fresh(case, built, hyperparams, seed)
-    step = rule.step
-    with np.errstate(all="ignore"), threadpool_limits(limits=1):
-        t0 = time.process_time()
-        state = rule.init(x)
-        for _ in range(k):
-            x, state = step(x, grad(x), state)
-        return time.process_time() - t0
+        return sum(replay_seconds(case, hyper, seed, k, clock=clock) for _ in range(inner))
 
 
 class _LocalSide:
@@ -541,6 +516,7 @@ def compare(
         return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs)
 
     times: list[tuple[list[float], list[float]]] = [([], []) for _ in instances]
+    plan: list[tuple[Any, ...]] = []
     with ExitStack() as trees:
         fronts = [trees.enter_context(worktree(s.rev, here)) if s.rev else here for s in (a, b)] if workers else []
         for round_no, share in enumerate(_shares(repeats, rounds)):
@@ -553,7 +529,8 @@ def compare(
                 mon_a, mon_b = sides[0].setup(setup(a)), sides[1].setup(setup(b))
                 new_plan = [_plan(inst, ma, mb) for inst, ma, mb in zip(instances, mon_a, mon_b)]
                 if round_no and [p[1:3] for p in new_plan] != [p[1:3] for p in plan]:
-                    raise RuntimeError("the monitored passes differ between rounds: the rules are not deterministic")
+                    raise UserError("the monitored passes differ between rounds of fresh processes: "
+                                    "the rules are not deterministic, so their timings cannot be paired")
                 plan = new_plan
                 for i, (target, ka, kb, _) in enumerate(plan):
                     if target is not _SKIP:

@@ -563,13 +563,17 @@ def _run_passes(
 
 
 # -- the timing replay -------------------------------------------------------------------
+#: replay clocks: wall time, or the process's CPU time (not inflated by other
+#: processes competing for the cores; what ``compare`` uses by default)
+CLOCKS: dict[str, Callable[[], float]] = {"wall": time.perf_counter, "cpu": time.process_time}
+
+
 def _replay_once(problem: Any, rule: Any, grad: Callable[[np.ndarray], np.ndarray], x: np.ndarray,
-                 checkpoints: Sequence[int]) -> list[float]:
+                 checkpoints: Sequence[int], clock: Callable[[], float] = time.perf_counter) -> list[float]:
     """Seconds from the start to each checkpoint iteration, one uninstrumented run."""
     step = rule.step
     out = []
     done = 0
-    clock = time.perf_counter
     t0 = clock()
     state = rule.init(x)
     for kc in checkpoints:
@@ -609,17 +613,19 @@ def replay_times(case: Case, hyperparams: Mapping[str, Any], seed: int, checkpoi
     return runs
 
 
-def replay_seconds(case: Case, hyperparams: Mapping[str, Any], seed: int, k: int, *, threads: int | None = 1) -> float:
+def replay_seconds(case: Case, hyperparams: Mapping[str, Any], seed: int, k: int, *, threads: int | None = 1,
+                   clock: str = "wall") -> float:
     """One timed uninstrumented replay of ``k`` steps (for interleaved A/B comparisons).
 
-    ``threads`` pins the BLAS threads for the replay (``None``: leave as is).
+    ``threads`` pins the BLAS threads for the replay (``None``: leave as is);
+    ``clock`` is a key of :data:`CLOCKS`.
     """
     from threadpoolctl import threadpool_limits
 
     built = _built(case.instance, with_optimum=False)
     rule, grad, x = _fresh(case, built, hyperparams, seed)
     with threadpool_limits(limits=threads):
-        return _replay_once(built.problem, rule, grad, x, [int(k)])[-1]
+        return _replay_once(built.problem, rule, grad, x, [int(k)], CLOCKS[clock])[-1]
 
 
 def _needs_replay(o: SeedOutcome) -> bool:
