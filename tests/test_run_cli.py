@@ -159,3 +159,14 @@ def test_table_marks_a_count_above_its_bound() -> None:
     r = CaseResult(Case(inst, parse_rule("gd")), {"lr": 1.0}, (o,), (10, 20, 80, 90), "reached")
     text = format_results([r])
     assert "50 (<=20!)" in text and "5 (<=10)" in text and "above its published bound" in text
+
+
+def test_impossible_instance_sizes_stop_the_run_before_any_work(tmp_path: Path, capsys) -> None:
+    cat = tmp_path / "mine.toml"
+    cat.write_text('[[instance]]\nname = "lsq-too-wide"\nfamily = "least_squares"\ntargets = [1e-2]\nbudget = 10\n'
+                   "[instance.params]\nn = 5\nd = 10\n")
+    code, out, err = _run(capsys, "run", "--catalogue", str(cat), "--problems", "lsq-too-wide", "--out", str(tmp_path))
+    assert code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "mine.toml: [lsq-too-wide].params" in lines[0] and "n >= d" in lines[0]
+    assert not (tmp_path / "runs").exists()  # nothing written for a run that never started
