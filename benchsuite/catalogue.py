@@ -361,7 +361,8 @@ def _looks_like_path(text: str) -> bool:
 
 
 def select(
-    catalogue: Mapping[str, Instance], selector: str | None = None, tier: str | None = "small"
+    catalogue: Mapping[str, Instance], selector: str | None = None, tier: str | None = "small",
+    *, validate: bool = False,
 ) -> list[Instance]:
     """Instances chosen by a selector.
 
@@ -371,7 +372,17 @@ def select(
     all tiers). Globs are restricted to ``tier`` as well; an exact name or a
     path is taken whatever its tier. Order follows the selector, without
     repeats. An unknown name raises :class:`UserError` listing close matches.
+    ``validate=True`` also builds each chosen instance, so that impossible
+    parameters are reported (one line, with the location) before any work.
     """
+    chosen = _select(catalogue, selector, tier)
+    if validate:
+        for inst in chosen:
+            inst.build()
+    return chosen
+
+
+def _select(catalogue: Mapping[str, Instance], selector: str | None, tier: str | None) -> list[Instance]:
     if tier is not None and tier not in TIERS:
         raise UserError(f"--tier: unknown tier {tier!r} (one of {', '.join(TIERS)})")
 

@@ -506,7 +506,7 @@ def compare(
     rounds = (ROUNDS if workers else 1) if rounds is None else rounds
     if rounds < 1 or (workers and repeats < 2 * rounds):
         raise UserError(f"--rounds: need 1 <= rounds <= repeats/2, got {rounds} for {repeats} pairs")
-    instances = tuple(select(load_catalogue(list(catalogue_paths) or None), problems, tier))
+    instances = tuple(select(load_catalogue(list(catalogue_paths) or None), problems, tier, validate=True))
     if not instances:
         raise UserError("--problems: no instance selected")
     here = Path(cwd or os.getcwd())

@@ -55,7 +55,7 @@ def assert_converges(
     from benchsuite.runner import Case, run_cases
 
     spec = parse_rule(rule, dict(params or {}))
-    instances = select(load_catalogue(list(catalogue) or None), problems, tier)
+    instances = select(load_catalogue(list(catalogue) or None), problems, tier, validate=True)
     if not instances:
         raise UserError(f"assert_converges: selector {problems!r} chose no problem")
     oracle = "full" if batch is None else "minibatch"

@@ -947,11 +947,9 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
     from benchsuite.sweep import parse_sweep, selection_table
 
     cat = load_catalogue(list(req.catalogue) or None)
-    instances = select(cat, req.problems, tier=req.tier)
+    instances = select(cat, req.problems, tier=req.tier, validate=True)
     if not instances:
         raise UserError(f"no problems selected (--problems {req.problems!r}, --tier {req.tier})")
-    for inst in instances:
-        inst.build()  # impossible params are the user's mistake: one line, before any work
     names = list(req.rules) or list(DEFAULT_RULES)
     for name in names:
         parse_rule(name)  # an unknown rule fails here, before any work

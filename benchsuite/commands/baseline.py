@@ -42,7 +42,7 @@ def run(args: argparse.Namespace) -> int:
     if n_seeds < 1:
         raise UserError(f"--seeds: must be >= 1, got {n_seeds}")
     spec = parse_rule(args.rule, args.param)
-    instances = select(load_catalogue(args.catalogue or None), args.problems, args.tier)
+    instances = select(load_catalogue(args.catalogue or None), args.problems, args.tier, validate=True)
     if not instances:
         raise UserError("--problems: no instance selected")
     oracle = "full" if args.batch is None else "minibatch"
