@@ -348,7 +348,8 @@ class _Built:
         if with_optimum:
             from benchsuite.optimum import certified_optimum
 
-            opt = certified_optimum(instance)
+            f64 = self.problem.dtype == np.float64  # the optimum is certified in float64
+            opt = certified_optimum(instance, problem=self.problem if f64 else None)
             self.f_star = float(opt.f_star)
             self.x_star = np.asarray(opt.x_star, dtype=np.float64)
 
