@@ -11,20 +11,7 @@ from hypothesis import strategies as st
 from benchsuite.families import resolve_family
 from benchsuite.families.logistic import Logistic, Softmax, spectral_norm
 
-
-def central_difference_grad(f, x: np.ndarray, h: float) -> np.ndarray:
-    """Central finite differences, one coordinate at a time (truncation error O(h^2))."""
-    g = np.empty_like(x)
-    for i in range(x.size):
-        e = np.zeros_like(x)
-        e[i] = h
-        g[i] = (f(x + e) - f(x - e)) / (2 * h)
-    return g
-
-
-def hessian_from_hessp(p, x: np.ndarray) -> np.ndarray:
-    H = np.column_stack([p.hessp(x, e) for e in np.eye(p.dim)])
-    return 0.5 * (H + H.T)
+from derivatives import central_difference_grad, hessian_from_hessp
 
 
 SMALL = {

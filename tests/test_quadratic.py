@@ -11,10 +11,7 @@ from hypothesis.extra.numpy import arrays
 from benchsuite.families import resolve_family
 from benchsuite.families.quadratic import Quadratic, eigen_grid
 
-
-def hessian_from_hessp(p, x: np.ndarray) -> np.ndarray:
-    H = np.column_stack([p.hessp(x, e) for e in np.eye(p.dim)])
-    return 0.5 * (H + H.T)
+from derivatives import hessian_from_hessp
 
 
 def test_registered_by_short_name():
