@@ -104,9 +104,11 @@ def test_sweep_selects_per_problem_and_params_from_reuses_it(tmp_path: Path, cap
 
 
 def test_interrupt_keeps_finished_cases_and_resume_completes_them(tmp_path: Path) -> None:
+    # each step sleeps 10 ms, so a case lasts about a second: the interrupt after the second
+    # case lands well before the sixth, even on a loaded machine (the counts do not depend on it)
     env = {**os.environ, "PYTHONPATH": str(TESTS)}
     argv = [sys.executable, "-m", "benchsuite", "run", "--problems", "quad-diag-kappa10-d10", "--rule",
-            "faulty_rules:SlowGD", "--param", "delay=0.002", "--sweep", "lr=0.3:0.9:6", "--no-timing", "--jobs", "1", "--out", str(tmp_path)]
+            "faulty_rules:SlowGD", "--param", "delay=0.01", "--sweep", "lr=0.3:0.9:6", "--no-timing", "--jobs", "1", "--out", str(tmp_path)]
     proc = subprocess.Popen(argv, cwd=REPO, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     seen = []
     for line in proc.stderr:  # plain progress lines (not a terminal)
@@ -133,7 +135,7 @@ def test_interrupt_keeps_finished_cases_and_resume_completes_them(tmp_path: Path
     # an uninterrupted run of the same request, in this process
     from benchsuite.runner import run
 
-    full = run(["faulty_rules:SlowGD"], ["delay=0.002"], problems="quad-diag-kappa10-d10", sweep="lr=0.3:0.9:6", timing=False,
+    full = run(["faulty_rules:SlowGD"], ["delay=0.01"], problems="quad-diag-kappa10-d10", sweep="lr=0.3:0.9:6", timing=False,
                jobs=2, out=None)
     a = resumed.sort_values(["case", "target_index"]).iterations.tolist()
     b = full.sort_values(["case", "target_index"]).iterations.tolist()
