@@ -24,11 +24,11 @@ from typing import Any
 
 import numpy as np
 
-from benchsuite.families.least_squares import positive_int
-from benchsuite.problem import Constants, Problem, as_dtype
+from benchsuite.families.least_squares import LinearModel, positive_int
+from benchsuite.problem import Constants, as_dtype
 
 
-class Huber(Problem):
+class Huber(LinearModel):
     """Huber regression with optional L2 (see module docstring).
 
     Parameters: ``n`` rows, ``d`` columns, ``delta > 0`` (the Huber threshold),
@@ -83,25 +83,9 @@ class Huber(Problem):
         self._t = np.empty(self.dim, dtype=self.dtype)
 
     # -- oracle -------------------------------------------------------------
-    def _residual(self, x: np.ndarray, A: np.ndarray, b: np.ndarray, out: np.ndarray | None) -> np.ndarray:
-        r = A @ x if out is None else np.matmul(A, x, out=out)
-        return np.subtract(r, b, out=r)
-
     def _loss(self, r: np.ndarray, c: np.ndarray) -> float:
         """Mean of ``h(r) = c (r - c/2)``, ``c = clip(r)`` already in ``c``."""
         return float(c @ r - 0.5 * (c @ c)) / r.size
-
-    def _finish(self, x: np.ndarray, c: np.ndarray, A: np.ndarray, out: np.ndarray | None) -> np.ndarray:
-        if out is None:
-            out = np.empty(self.dim, dtype=self.dtype)
-        np.matmul(A.T, c, out=out)
-        out *= 1.0 / A.shape[0]
-        if self.lam:
-            out += np.multiply(x, self.lam, out=self._t)
-        return out
-
-    def _reg(self, x: np.ndarray) -> float:
-        return 0.5 * self.lam * float(x @ x) if self.lam else 0.0
 
     def value(self, x: np.ndarray) -> float:
         r = self._residual(x, self.A, self.b, self._r)
@@ -122,9 +106,6 @@ class Huber(Problem):
         Ab = self.A[idx]
         r = self._residual(x, Ab, self.b[idx], None)
         return self._finish(x, np.clip(r, -self.delta, self.delta, out=r), Ab, out)
-
-    def initial_point(self) -> np.ndarray:
-        return np.zeros(self.dim, dtype=self.dtype)
 
     # -- what is known ---------------------------------------------------
     def constants(self) -> Constants:

@@ -45,7 +45,40 @@ def positive_int(name: str, value: Any) -> int:
     return int(value)
 
 
-class _LinearRegression(Problem):
+class LinearModel(Problem):
+    """Shared pieces of losses of the residual ``A x - b`` plus ``lam/2 ||x||^2``.
+
+    Subclasses (least squares, ridge, Huber) store ``A``, ``b`` in the working
+    dtype, ``lam`` and a scratch vector ``_t`` of length ``dim``. Rows may be a
+    minibatch ``A_B``, ``b_B``: the gradient is ``A^T c / rows + lam x`` for
+    the loss derivative ``c`` of each row, an unbiased estimate for uniformly
+    sampled rows. The start point is ``x0 = 0``.
+    """
+
+    lam: float = 0.0
+
+    def _residual(self, x: np.ndarray, A: np.ndarray, b: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+        r = A @ x if out is None else np.matmul(A, x, out=out)
+        return np.subtract(r, b, out=r)
+
+    def _finish(self, x: np.ndarray, c: np.ndarray, A: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+        """``A^T c / rows(A) + lam x`` into ``out`` (allocated when ``None``)."""
+        if out is None:
+            out = np.empty(self.dim, dtype=self.dtype)
+        np.matmul(A.T, c, out=out)
+        out *= 1.0 / A.shape[0]
+        if self.lam:
+            out += np.multiply(x, self.lam, out=self._t)
+        return out
+
+    def _reg(self, x: np.ndarray) -> float:
+        return 0.5 * self.lam * float(x @ x) if self.lam else 0.0
+
+    def initial_point(self) -> np.ndarray:
+        return np.zeros(self.dim, dtype=self.dtype)
+
+
+class _LinearRegression(LinearModel):
     """Shared oracle of ``1/(2n) ||A x - b||^2 + lam/2 ||x||^2`` (see module docstring)."""
 
     _constants_note = ""
@@ -65,49 +98,22 @@ class _LinearRegression(Problem):
         self._t = np.empty(self.dim, dtype=self.dtype)
 
     # -- oracle -------------------------------------------------------------
-    def _residual(self, x: np.ndarray) -> np.ndarray:
-        r = np.matmul(self.A, x, out=self._r)
-        return np.subtract(r, self.b, out=r)
-
-    def _finish(self, x: np.ndarray, r: np.ndarray, out: np.ndarray | None) -> np.ndarray:
-        if out is None:
-            out = np.empty(self.dim, dtype=self.dtype)
-        np.matmul(self.A.T, r, out=out)
-        out *= self._inv_n
-        if self.lam:
-            out += np.multiply(x, self.lam, out=self._t)
-        return out
-
-    def _reg(self, x: np.ndarray) -> float:
-        return 0.5 * self.lam * float(x @ x) if self.lam else 0.0
-
     def value(self, x: np.ndarray) -> float:
-        r = self._residual(x)
+        r = self._residual(x, self.A, self.b, self._r)
         return 0.5 * self._inv_n * float(r @ r) + self._reg(x)
 
     def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        return self._finish(x, self._residual(x), out)
+        return self._finish(x, self._residual(x, self.A, self.b, self._r), self.A, out)
 
     def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
-        r = self._residual(x)
+        r = self._residual(x, self.A, self.b, self._r)
         f = 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-        return f, self._finish(x, r, out)
+        return f, self._finish(x, r, self.A, out)
 
     def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         """``(1/|B|) A_B^T (A_B x - b_B) + lam x``; unbiased for uniform sampling of rows."""
         Ab = self.A[idx]
-        r = Ab @ x
-        r -= self.b[idx]
-        if out is None:
-            out = np.empty(self.dim, dtype=self.dtype)
-        np.matmul(Ab.T, r, out=out)
-        out *= 1.0 / len(idx)
-        if self.lam:
-            out += np.multiply(x, self.lam, out=self._t)
-        return out
-
-    def initial_point(self) -> np.ndarray:
-        return np.zeros(self.dim, dtype=self.dtype)
+        return self._finish(x, self._residual(x, Ab, self.b[idx], None), Ab, out)
 
     # -- what is known ---------------------------------------------------
     def constants(self) -> Constants:
