@@ -19,6 +19,7 @@ never concurrently with other cases.
 
 from __future__ import annotations
 
+import platform
 import statistics
 import time
 from collections.abc import Callable, Mapping, Sequence
@@ -143,4 +144,5 @@ def timed_outcome(case: Case, hyperparams: Mapping[str, Any], o: SeedOutcome, re
         its = trace.iteration
         secs = np.interp(its, [0, *cps], [0.0, *(per_cp[c][0] for c in cps)])
         trace = trace.with_seconds(np.where(its <= last, secs, np.nan))
-    return replace(o, time_to_target=ttt, time_spread=spread, time_per_step=per_cp[last][0] / last, trace=trace)
+    return replace(o, time_to_target=ttt, time_spread=spread, time_per_step=per_cp[last][0] / last, trace=trace,
+                   timed_on=platform.node())
