@@ -252,6 +252,7 @@ class _Setup:
     batch: int | None
     seeds: tuple[int, ...]
     jobs: int | None
+    cluster: str | None = None  # a Dask scheduler address for the monitored passes
 
 
 @dataclass(frozen=True)
@@ -280,7 +281,8 @@ class _Engine:
             params = tuple(parse_param(p) for p in params)  # type: ignore[arg-type]
         spec = parse_rule(s.rule, dict(params))
         self.cases = [Case(instance=i, rule=spec, oracle=s.oracle, batch=s.batch, seeds=s.seeds) for i in s.instances]
-        results = run_cases(self.cases, jobs=s.jobs, timing=False, progress=False)
+        results = run_cases(self.cases, jobs=s.jobs, timing=False, progress=False,
+                            **({"cluster": s.cluster} if getattr(s, "cluster", None) else {}))
         self.hyper = [r.hyperparams for r in results]
         out = []
         for r in results:
@@ -488,6 +490,7 @@ def compare(
     cwd: str | Path | None = None,
     clock: str = "cpu",
     rounds: int | None = None,
+    cluster: str | None = None,
 ) -> Comparison:
     """Measure B against A on the selected problems (see the module docstring).
 
@@ -513,7 +516,7 @@ def compare(
 
     def setup(side: Side) -> _Setup:
         params = tuple(sorted(side.params.items())) if isinstance(side.params, Mapping) else tuple(side.params)
-        return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs)
+        return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs, cluster)
 
     times: list[tuple[list[float], list[float]]] = [([], []) for _ in instances]
     plan: list[tuple[Any, ...]] = []

@@ -129,7 +129,8 @@ def run_cases(
     ``envelope`` records the round-off envelope (two shadow passes per seed;
     see :mod:`benchsuite.monitor`). ``cluster`` is a Dask scheduler address
     (default: local worker processes, ``jobs`` of them, default the number of
-    cores). ``progress``: ``None`` -- a bar on a terminal, plain lines
+    cores); on a cluster the timing replays run on the workers too, one per
+    machine at a time (:mod:`benchsuite.executors.cluster`). ``progress``: ``None`` -- a bar on a terminal, plain lines
     otherwise; ``False`` -- silent. Results come back in the order of ``cases``.
     """
     from threadpoolctl import threadpool_limits
@@ -180,6 +181,22 @@ def run_cases(
     executor = make_executor(jobs=jobs, threads=threads, cluster=cluster)
     try:
         executor.run(tasks, collect)
+        time_cases = getattr(executor, "time_cases", None)  # a cluster times on its workers
+        if to_time and time_cases is not None:
+            def timed(i: int, res: CaseResult) -> None:
+                nonlocal done
+                results[i] = res
+                if on_result is not None:
+                    on_result(res)
+                done += 1
+                show(done, "timed " + _summary_line(res))
+
+            for i in to_time:
+                if results[i].timed:
+                    done += 1
+                    show(done, "timed " + _summary_line(results[i]))
+            time_cases([(i, results[i]) for i in to_time if not results[i].timed], repeats, timed)
+            to_time = []
     finally:
         executor.close()
     if to_time:
@@ -388,6 +405,7 @@ def execute(
     out: str | os.PathLike[str] | None = "results",
     resume: str | None = None,
     progress: bool | None = False,
+    cluster: str | None = None,
 ) -> RunOutcome:
     """Plan, run, store (run directory + history) and tabulate a request.
 
@@ -410,6 +428,10 @@ def execute(
         stored = rd.load_cases()
     assert req is not None
     plan = plan_cases(req, out)
+    if cluster:  # a bad address fails here, before a run folder exists
+        from benchsuite.executors.cluster import connect
+
+        connect(cluster).close()
     if rd is None and out is not None:
         rd = RunDir.create(out)
     if not resume:
@@ -420,7 +442,7 @@ def execute(
         "git": git_info(),
         "machine": machine_info(),
         "settings": {"jobs": jobs or os.cpu_count(), "threads": threads, "repeats": repeats, "timeout": timeout,
-                     "timing": timing, "diverged_above": DIVERGED_ABOVE},
+                     "timing": timing, "diverged_above": DIVERGED_ABOVE, "cluster": cluster},
         "sweep": parse_sweep(req.sweep).describe() if req.sweep else None,
         "skipped": list(plan.skipped),
         "n_cases": len(plan.cases),
@@ -456,7 +478,7 @@ def execute(
 
     try:
         results = run_cases(plan.cases, jobs=jobs, timing=timing, repeats=repeats, threads=threads,
-                            timeout=timeout, progress=progress, previous=previous, on_result=keep)
+                            timeout=timeout, progress=progress, previous=previous, on_result=keep, cluster=cluster)
     except KeyboardInterrupt:
         done = [finished[c.key()] for c in plan.cases if c.key() in finished]
         close("partial", done, [])
@@ -494,6 +516,7 @@ def run(
     out: str | os.PathLike[str] | None = "results",
     resume: str | None = None,
     progress: bool | None = False,
+    cluster: str | None = None,
 ) -> pd.DataFrame:
     """Run rules on catalogue problems and return the tidy table (one row per case x seed x target).
 
@@ -509,11 +532,11 @@ def run(
     results folder (run directory + history; ``None`` writes nothing);
     ``resume``: complete an interrupted run (the other arguments are then
     taken from it). Execution settings (``jobs``, ``threads``, ``repeats``,
-    ``timeout``, ``timing``) are described in :func:`run_cases`.
+    ``timeout``, ``timing``, ``cluster``) are described in :func:`run_cases`.
     """
     req = None if resume else RunRequest.make(
         rules=rules, params=params, problems=problems, tier=tier, catalogue=catalogue, batch=batch,
         replace=replace, seeds=seeds, budget=budget, sweep=sweep, params_from=params_from,
     )
     return execute(req, jobs=jobs, threads=threads, repeats=repeats, timeout=timeout, timing=timing,
-                   out=out, resume=resume, progress=progress).frame
+                   out=out, resume=resume, progress=progress, cluster=cluster).frame

@@ -1,0 +1,376 @@
+"""Monitored passes (and timing replays) on a Dask distributed cluster.
+
+``ClusterExecutor(address)`` connects a ``distributed.Client`` to the
+scheduler at ``address`` (``tcp://host:8786``) and submits one task per
+:class:`~benchsuite.monitor.PassTask` (``pure=False``, a readable key unique
+to the run); each task calls :func:`benchsuite.monitor.run_pass` with BLAS
+pinned to ``threads`` (threadpoolctl), exactly as a local worker process does,
+so counts and fingerprints are those of a local run. Reports are handed to
+``on_report`` as tasks finish (``as_completed``); the caller puts them in order.
+
+What travels: a task is a :class:`~benchsuite.cases.Case` (the instance's
+*definition*, never its data) and a seed. Each worker builds the problem from
+the definition and its seed and looks up or certifies the optimum itself;
+:func:`benchsuite.monitor.built` caches the last few built instances per
+worker process, so the cases of one instance on one worker build it once.
+
+**Data files.** An instance whose parameters name files (a NIST StRD file, a
+user's data file) reads them *on the worker, at the same absolute path*: a
+shared file system, or a copy at the same place. The client sends each file's
+sha256 with the task; before the first pass that needs the file, a worker
+checks that the path exists and that its bytes have that digest (once per
+worker process and file). A missing or different file stops the run with one
+line naming the worker, the instance and the path (exit 2); finished cases
+are kept and ``--resume`` completes the run once the files are in place. We
+do not ship the bytes: an instance's identity (its problem hash, which keys
+the certified optimum and seeds the minibatch sampler) contains the path, so a
+copy under another path on the worker would be another problem.
+
+**Failures.**
+
+* A worker that dies mid-pass: the scheduler reruns the task elsewhere
+  (``distributed.scheduler.allowed-failures``, default 3). The rerun starts
+  from scratch with the same seed, so its report equals what the lost run
+  would have given; each task is reported exactly once. A task whose workers
+  die more often than that is reported with status ``error``.
+* A pass that overruns its timeout stops itself at its next check (status
+  ``timeout``). A step that never returns: ``timeout x (1 + SHADOWS with the
+  envelope) + KILL_GRACE`` seconds after the task *started* (each task logs a
+  start event), its future is cancelled, the pass is reported ``timeout`` and
+  the worker is restarted through its nanny (a Python thread cannot be
+  stopped; a worker started with ``--no-nanny`` cannot be restarted and keeps
+  one thread busy until the step returns). Other tasks that were on that
+  worker are rerun elsewhere.
+* A bad address, a scheduler without workers, workers that cannot import
+  benchsuite or the run's rule modules: one line (``UserError``, exit 2)
+  before any pass runs.
+
+**Timing replays** (:meth:`ClusterExecutor.time_cases`) run after all passes,
+as tasks on the workers with BLAS pinned to ``threads``, serialised per
+machine by a ``distributed.Lock`` named after the worker's host name, so no
+replay overlaps another replay of this scheduler on that machine. Each timed
+seed records the machine in ``SeedOutcome.timed_on``. Work other clients send
+to the same workers at the same time is not excluded.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import time
+import uuid
+from collections.abc import Callable, Sequence
+from typing import Any
+
+from benchsuite.errors import UserError
+from benchsuite.monitor import SHADOWS, PassReport, PassTask, failed_report
+
+__all__ = ["CONNECT_TIMEOUT", "KILL_GRACE", "ClusterExecutor", "DataFileError", "connect"]
+
+#: seconds to reach the scheduler (and, once connected, to see its first worker)
+CONNECT_TIMEOUT = float(os.environ.get("BENCHSUITE_CLUSTER_TIMEOUT", "10"))
+#: seconds past a hung pass's limit before its future is cancelled (network and start-up included)
+KILL_GRACE = 5.0
+#: the topic of the "task started" events workers log
+_STARTED = "benchsuite-started"
+#: how often the client looks at deadlines while waiting for results, seconds
+_POLL = 0.05
+
+
+class DataFileError(Exception):
+    """A data file an instance reads is missing on a worker or differs from the client's."""
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip() or type(exc).__name__
+    return text.splitlines()[0][:200]
+
+
+def connect(address: str) -> Any:
+    """A ``distributed.Client`` on ``address``; ``UserError`` naming it when that fails."""
+    try:
+        import distributed
+    except ImportError:
+        raise UserError("--cluster needs Dask distributed, which is not installed "
+                        "(pip install 'benchsuite[cluster]')") from None
+    import logging
+
+    # a failed connect logs its own traceback-like lines; the UserError below says it in one
+    logging.getLogger("distributed").setLevel(logging.CRITICAL)
+    try:
+        client = distributed.Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
+    except Exception as exc:  # OSError, TimeoutError, ValueError for a malformed address ...
+        raise UserError(f"--cluster {address}: no Dask scheduler answered within {CONNECT_TIMEOUT:g} s "
+                        f"({_first_line(exc)})") from None
+    logging.getLogger("distributed").setLevel(logging.WARNING)
+    try:
+        client.wait_for_workers(1, timeout=CONNECT_TIMEOUT)
+    except Exception:
+        client.close()
+        raise UserError(f"--cluster {address}: the scheduler has no workers "
+                        f"(none joined within {CONNECT_TIMEOUT:g} s; start some with "
+                        f"`dask worker {address} --nthreads 1`)") from None
+    return client
+
+
+# -- on the workers ---------------------------------------------------------------------
+def _probe(modules: Sequence[str]) -> tuple[str, str, list[str]]:
+    """benchsuite's version, this host, and the modules that do not import here."""
+    import importlib
+    import platform
+
+    import benchsuite
+
+    bad = []
+    for m in modules:
+        try:
+            importlib.import_module(m)
+        except Exception as exc:
+            bad.append(f"{m} ({_first_line(exc)})")
+    return benchsuite.__version__, platform.node(), bad
+
+
+_CHECKED: set[tuple[str, str]] = set()
+
+
+def _sha256(path: str) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _check_files(files: Sequence[tuple[str, str]], instance: str) -> None:
+    """Every (path, sha256) is on this worker with those bytes (checked once per process)."""
+    import platform
+
+    for path, digest in files:
+        if (path, digest) in _CHECKED:
+            continue
+        where = f"worker on {platform.node()}: instance {instance} reads {path}"
+        try:
+            got = _sha256(path)
+        except OSError as exc:
+            raise DataFileError(f"{where}, which is not readable there ({exc.strerror or exc}); every worker "
+                                "needs the data files at the same absolute path (shared file system or a copy)") from None
+        if got != digest:
+            raise DataFileError(f"{where}, whose bytes differ from the client's copy (sha256 {got[:12]} "
+                                f"there, {digest[:12]} here)")
+        _CHECKED.add((path, digest))
+
+
+def _pass_on_worker(task: PassTask, threads: int, files: tuple[tuple[str, str], ...], key: str) -> PassReport:
+    """One monitored pass on a worker: check data files, log the start, run with BLAS pinned."""
+    import distributed
+    from threadpoolctl import threadpool_limits
+
+    from benchsuite.monitor import run_pass
+
+    _check_files(files, task.case.instance.name)
+    worker = distributed.get_worker()
+    worker.log_event(_STARTED, {"key": key, "worker": worker.address})
+    with threadpool_limits(limits=threads):
+        return run_pass(task)
+
+
+def _time_on_worker(result: Any, repeats: int, threads: int, files: tuple[tuple[str, str], ...]) -> Any:
+    """A case's timing replays on a worker, one machine-wide at a time (a lock per host name)."""
+    import platform
+    from dataclasses import replace
+
+    import distributed
+    from threadpoolctl import threadpool_limits
+
+    from benchsuite.timing import needs_replay, timed_outcome
+
+    _check_files(files, result.case.instance.name)
+    with distributed.Lock(f"benchsuite-replay:{platform.node()}"), threadpool_limits(limits=threads):
+        outs = tuple(timed_outcome(result.case, result.hyperparams, o, repeats) if needs_replay(o) else o
+                     for o in result.outcomes)
+    return replace(result, outcomes=outs)
+
+
+# -- on the client ----------------------------------------------------------------------
+def _instance_files(instance: Any) -> tuple[tuple[str, str], ...]:
+    """(absolute path, sha256) of each string parameter naming a file here (as ``Problem.data_digest``)."""
+    out = []
+    for _, value in instance.params:
+        if isinstance(value, str) and len(value) < 4096 and os.path.isfile(value):
+            out.append((os.path.abspath(value), _sha256(value)))
+    return tuple(out)
+
+
+def _rule_modules(tasks: Sequence[PassTask]) -> list[str]:
+    return sorted({t.case.rule.name.split(":")[0] for t in tasks if ":" in t.case.rule.name})
+
+
+class ClusterExecutor:
+    """Passes as Dask tasks (see the module docstring)."""
+
+    def __init__(self, address: str, *, threads: int = 1) -> None:
+        self.address = address
+        self.threads = int(threads)
+        self.client = connect(address)
+        self._token = uuid.uuid4().hex[:8]
+        self._files: dict[str, tuple[tuple[str, str], ...]] = {}
+        self._started: dict[str, tuple[float, str]] = {}
+        self._futures: dict[str, Any] = {}
+        self.client.subscribe_topic(_STARTED, self._on_started)
+
+    def close(self) -> None:
+        try:
+            self.client.unsubscribe_topic(_STARTED)
+        except Exception:  # pragma: no cover - a client already closing
+            pass
+        self.client.close()
+
+    def _on_started(self, event: tuple[float, dict[str, str]]) -> None:
+        msg = event[1]
+        self._started[msg["key"]] = (time.monotonic(), msg["worker"])
+
+    def _files_of(self, instance: Any) -> tuple[tuple[str, str], ...]:
+        k = instance.name + instance.definition_hash()
+        if k not in self._files:
+            self._files[k] = _instance_files(instance)
+        return self._files[k]
+
+    def _check_workers(self, tasks: Sequence[PassTask]) -> None:
+        """Every worker imports benchsuite (same version) and the run's rule modules: else one line."""
+        from benchsuite import __version__
+
+        modules = _rule_modules(tasks)
+        try:
+            answers = self.client.run(_probe, modules, on_error="return")
+        except Exception as exc:
+            raise UserError(f"--cluster {self.address}: could not ask the workers ({_first_line(exc)})") from None
+        for worker, ans in sorted(answers.items()):
+            if isinstance(ans, BaseException):
+                raise UserError(f"--cluster {self.address}: worker {worker} cannot run benchsuite "
+                                f"({_first_line(ans)}); install the same benchsuite there")
+            version, host, bad = ans
+            if version != __version__:
+                raise UserError(f"--cluster {self.address}: worker {worker} ({host}) has benchsuite {version}, "
+                                f"this client {__version__}; install the same version on every worker")
+            if bad:
+                raise UserError(f"--cluster {self.address}: worker {worker} ({host}) cannot import the rule "
+                                f"module {bad[0]}; put it on the workers' PYTHONPATH")
+
+    def _collect(self, futures: dict[str, int], on_done: Callable[[int, Any], None],
+                 failed: Callable[[int, str, str], Any], limit: Callable[[int], float | None]) -> None:
+        """Hand each future's result to ``on_done`` exactly once; cancel hung ones past ``limit``."""
+        from distributed import as_completed
+
+        ac = as_completed(list(self._futures.values()), with_results=False, loop=self.client.loop)
+        done: set[int] = set()
+        try:
+            while len(done) < len(futures):
+                batch = ac.next_batch(block=False) if ac.has_ready() else []
+                for fut in batch:
+                    tid = futures[fut.key]
+                    if tid in done:  # a future we cancelled after reporting its timeout
+                        continue
+                    done.add(tid)
+                    on_done(tid, self._outcome(fut, tid, failed))
+                now = time.monotonic()
+                for key, seen in self._started.copy().items():  # filled by the client's event thread
+                    tid = futures.get(key)
+                    if tid is None or tid in done:
+                        self._started.pop(key, None)
+                        continue
+                    lim = limit(tid)
+                    if lim is None or now < seen[0] + lim:
+                        continue
+                    done.add(tid)
+                    self._futures[key].cancel()
+                    note = self._restart(seen[1])
+                    on_done(tid, failed(tid, "timeout", f"no return within {lim - KILL_GRACE:g} s; "
+                                                        f"task cancelled, {note}"))
+                if not batch:
+                    time.sleep(_POLL)
+        finally:
+            left = [f for k, f in self._futures.items() if futures[k] not in done]
+            if left:  # Ctrl-C or an error: take our work off the cluster
+                self.client.cancel(left)
+            self._futures = {}
+
+    def _outcome(self, fut: Any, tid: int, failed: Callable[[int, str, str], Any]) -> Any:
+        if fut.status == "finished":
+            try:
+                return fut.result()
+            except Exception as exc:  # the result did not arrive (unpicklable, lost with the worker ...)
+                return failed(tid, "error", f"result lost: {_first_line(exc)}")
+        if fut.status == "cancelled":
+            return failed(tid, "error", "the scheduler cancelled the task (scheduler restarted or lost?)")
+        exc = fut.exception()
+        if isinstance(exc, DataFileError):
+            raise UserError(str(exc))
+        from distributed import KilledWorker
+
+        if isinstance(exc, KilledWorker):
+            return failed(tid, "error", "the workers running this task died too often "
+                                        f"(distributed.scheduler.allowed-failures): {_first_line(exc)}")
+        return failed(tid, "error", f"{type(exc).__name__}: {_first_line(exc)}")
+
+    def _restart(self, worker: str) -> str:
+        try:
+            self.client.restart_workers([worker], timeout=30)
+            return f"worker {worker} restarted"
+        except Exception as exc:
+            return f"worker {worker} not restarted ({_first_line(exc)}); it stays busy until the step returns"
+
+    # -- the executor interface ----------------------------------------------------------
+    def run(self, tasks: Sequence[PassTask], on_report: Callable[[int, PassReport], None]) -> None:
+        if not tasks:
+            return
+        self._check_workers(tasks)
+        futures: dict[str, int] = {}
+        self._futures = {}
+        for tid, task in enumerate(tasks):
+            key = f"benchsuite-pass-{self._token}-{tid:06d}"
+            futures[key] = tid
+            # larger iteration budgets first (higher priority runs earlier); results do not depend on it
+            self._futures[key] = self.client.submit(
+                _pass_on_worker, task, self.threads, self._files_of(task.case.instance), key,
+                key=key, pure=False, priority=task.case.run_budget)
+
+        def failed(tid: int, status: str, message: str) -> PassReport:
+            return failed_report(tasks[tid].case, tasks[tid].seed, status, message)
+
+        def limit(tid: int) -> float | None:
+            t = tasks[tid]
+            if t.timeout is None:
+                return None
+            return t.timeout * (1 + (SHADOWS if t.envelope else 0)) + KILL_GRACE
+
+        self._collect(futures, on_report, failed, limit)
+        self._token = uuid.uuid4().hex[:8]  # the next batch gets new keys
+
+    def time_cases(self, items: Sequence[tuple[int, Any]], repeats: int,
+                   on_timed: Callable[[int, Any], None]) -> None:
+        """Timing replays of ``(index, CaseResult)`` items on the workers, one per machine at a time.
+
+        ``on_timed(index, timed result)`` as each finishes. A case whose replay
+        fails keeps its untimed result (its timing columns stay empty).
+        """
+        if not items:
+            return
+        futures: dict[str, int] = {}
+        self._futures = {}
+        for j, (_, res) in enumerate(items):
+            key = f"benchsuite-time-{self._token}-{j:06d}"
+            futures[key] = j
+            self._futures[key] = self.client.submit(
+                _time_on_worker, res, repeats, self.threads, self._files_of(res.case.instance),
+                key=key, pure=False)
+
+        def failed(j: int, status: str, message: str) -> Any:
+            import sys
+
+            res = items[j][1]
+            print(f"benchsuite: timing {res.case.instance.name} {res.case.rule.label} failed on the cluster "
+                  f"({message}); its time columns stay empty", file=sys.stderr)
+            return res
+
+        self._collect(futures, lambda j, res: on_timed(items[j][0], res), failed, lambda j: None)
+        self._token = uuid.uuid4().hex[:8]
