@@ -428,10 +428,10 @@ def execute(
         stored = rd.load_cases()
     assert req is not None
     plan = plan_cases(req, out)
-    if cluster:  # a bad address fails here, before a run folder exists
-        from benchsuite.executors.cluster import connect
+    if cluster:  # a bad address or worker set-up fails here, before a run folder exists
+        from benchsuite.executors.cluster import preflight
 
-        connect(cluster).close()
+        preflight(cluster, plan.cases)
     if rd is None and out is not None:
         rd = RunDir.create(out)
     if not resume:

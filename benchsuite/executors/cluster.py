@@ -65,7 +65,7 @@ from typing import Any
 from benchsuite.errors import UserError
 from benchsuite.monitor import SHADOWS, PassReport, PassTask, failed_report
 
-__all__ = ["CONNECT_TIMEOUT", "KILL_GRACE", "ClusterExecutor", "DataFileError", "connect"]
+__all__ = ["CONNECT_TIMEOUT", "KILL_GRACE", "ClusterExecutor", "DataFileError", "connect", "preflight"]
 
 #: seconds to reach the scheduler (and, once connected, to see its first worker)
 CONNECT_TIMEOUT = float(os.environ.get("BENCHSUITE_CLUSTER_TIMEOUT", "10"))
@@ -97,6 +97,13 @@ def connect(address: str) -> Any:
 
     # a failed connect logs its own traceback-like lines; the UserError below says it in one
     logging.getLogger("distributed").setLevel(logging.CRITICAL)
+    from distributed.comm import get_address_host_port
+
+    try:
+        get_address_host_port(address)
+    except Exception as exc:  # missing port, unknown scheme ...
+        raise UserError(f"--cluster {address}: not a scheduler address ({_first_line(exc)}; "
+                        "expected e.g. tcp://host:8786)") from None
     try:
         client = distributed.Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except Exception as exc:  # OSError, TimeoutError, ValueError for a malformed address ...
@@ -111,6 +118,40 @@ def connect(address: str) -> Any:
                         f"(none joined within {CONNECT_TIMEOUT:g} s; start some with "
                         f"`dask worker {address} --nthreads 1`)") from None
     return client
+
+
+def preflight(address: str, cases: Sequence[Any]) -> None:
+    """Connect, check the workers can run ``cases`` (benchsuite, rule modules), disconnect: else one line.
+
+    For callers that want a bad address or a badly set-up worker to fail
+    before they write anything (the runner calls it before creating a run folder).
+    """
+    client = connect(address)
+    try:
+        _check_workers(client, address, _rule_modules(cases))
+    finally:
+        client.close()
+
+
+def _check_workers(client: Any, address: str, modules: Sequence[str]) -> None:
+    """Every worker imports benchsuite (same version) and ``modules``: else one line."""
+    from benchsuite import __version__
+
+    try:
+        answers = client.run(_probe, list(modules), on_error="return")
+    except Exception as exc:
+        raise UserError(f"--cluster {address}: could not ask the workers ({_first_line(exc)})") from None
+    for worker, ans in sorted(answers.items()):
+        if isinstance(ans, BaseException):
+            raise UserError(f"--cluster {address}: worker {worker} cannot run benchsuite "
+                            f"({_first_line(ans)}); install the same benchsuite there")
+        version, host, bad = ans
+        if version != __version__:
+            raise UserError(f"--cluster {address}: worker {worker} ({host}) has benchsuite {version}, "
+                            f"this client {__version__}; install the same version on every worker")
+        if bad:
+            raise UserError(f"--cluster {address}: worker {worker} ({host}) cannot import the rule "
+                            f"module {bad[0]}; put it on the workers' PYTHONPATH")
 
 
 # -- on the workers ---------------------------------------------------------------------
@@ -201,8 +242,9 @@ def _instance_files(instance: Any) -> tuple[tuple[str, str], ...]:
     return tuple(out)
 
 
-def _rule_modules(tasks: Sequence[PassTask]) -> list[str]:
-    return sorted({t.case.rule.name.split(":")[0] for t in tasks if ":" in t.case.rule.name})
+def _rule_modules(cases: Sequence[Any]) -> list[str]:
+    """The modules of the cases' rules given as ``package.module:attr``."""
+    return sorted({c.rule.name.split(":")[0] for c in cases if ":" in c.rule.name})
 
 
 class ClusterExecutor:
@@ -234,27 +276,6 @@ class ClusterExecutor:
         if k not in self._files:
             self._files[k] = _instance_files(instance)
         return self._files[k]
-
-    def _check_workers(self, tasks: Sequence[PassTask]) -> None:
-        """Every worker imports benchsuite (same version) and the run's rule modules: else one line."""
-        from benchsuite import __version__
-
-        modules = _rule_modules(tasks)
-        try:
-            answers = self.client.run(_probe, modules, on_error="return")
-        except Exception as exc:
-            raise UserError(f"--cluster {self.address}: could not ask the workers ({_first_line(exc)})") from None
-        for worker, ans in sorted(answers.items()):
-            if isinstance(ans, BaseException):
-                raise UserError(f"--cluster {self.address}: worker {worker} cannot run benchsuite "
-                                f"({_first_line(ans)}); install the same benchsuite there")
-            version, host, bad = ans
-            if version != __version__:
-                raise UserError(f"--cluster {self.address}: worker {worker} ({host}) has benchsuite {version}, "
-                                f"this client {__version__}; install the same version on every worker")
-            if bad:
-                raise UserError(f"--cluster {self.address}: worker {worker} ({host}) cannot import the rule "
-                                f"module {bad[0]}; put it on the workers' PYTHONPATH")
 
     def _collect(self, futures: dict[str, int], on_done: Callable[[int, Any], None],
                  failed: Callable[[int, str, str], Any], limit: Callable[[int], float | None]) -> None:
@@ -323,7 +344,7 @@ class ClusterExecutor:
     def run(self, tasks: Sequence[PassTask], on_report: Callable[[int, PassReport], None]) -> None:
         if not tasks:
             return
-        self._check_workers(tasks)
+        _check_workers(self.client, self.address, _rule_modules([t.case for t in tasks]))
         futures: dict[str, int] = {}
         self._futures = {}
         for tid, task in enumerate(tasks):
