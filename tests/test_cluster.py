@@ -120,8 +120,9 @@ def test_a_worker_killed_mid_pass_loses_nothing(address: str) -> None:
         spy.close()
     assert killed, "no worker was seen running a pass"
     assert sorted(i for i, _ in reports) == list(range(len(tasks)))  # each exactly once
+    quick = _slow_tasks(delay=0.0)  # the same steps without the sleep: the same iterates
     for i, rep in reports:
-        local = run_pass(tasks[i])
+        local = run_pass(quick[i])
         assert rep.outcome.status == local.outcome.status != "error"
         _same(rep.outcome, local.outcome)
 
@@ -135,8 +136,6 @@ def test_a_step_that_never_returns_is_cancelled_as_timeout(address: str, monkeyp
     ex = ClusterExecutor(address)
     try:
         ex.run([hang, fine], lambda i, rep: reports.setdefault(i, rep))
-        client = ex.client
-        client.wait_for_workers(2, timeout=60)  # the hung worker was restarted by its nanny
     finally:
         ex.close()
     assert reports[0].outcome.status == "timeout"

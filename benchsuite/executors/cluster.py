@@ -258,9 +258,12 @@ class ClusterExecutor:
         self._files: dict[str, tuple[tuple[str, str], ...]] = {}
         self._started: dict[str, tuple[float, str]] = {}
         self._futures: dict[str, Any] = {}
+        self._restarts: list[Any] = []
         self.client.subscribe_topic(_STARTED, self._on_started)
 
     def close(self) -> None:
+        for t in self._restarts:  # let a restart reach the scheduler before we disconnect
+            t.join(timeout=10)
         try:
             self.client.unsubscribe_topic(_STARTED)
         except Exception:  # pragma: no cover - a client already closing
@@ -334,11 +337,20 @@ class ClusterExecutor:
         return failed(tid, "error", f"{type(exc).__name__}: {_first_line(exc)}")
 
     def _restart(self, worker: str) -> str:
-        try:
-            self.client.restart_workers([worker], timeout=30)
-            return f"worker {worker} restarted"
-        except Exception as exc:
-            return f"worker {worker} not restarted ({_first_line(exc)}); it stays busy until the step returns"
+        """Ask the worker's nanny for a fresh process, in the background (it may take a while)."""
+        import threading
+
+        def restart() -> None:
+            try:
+                self.client.restart_workers([worker], timeout=120, raise_for_error=False)
+            except Exception:  # no nanny, or the client closed meanwhile: the thread stays busy
+                pass
+
+        t = threading.Thread(target=restart, name=f"benchsuite-restart {worker}", daemon=True)
+        t.start()
+        self._restarts.append(t)
+        return (f"worker {worker} restarted by its nanny (without one it keeps a thread busy until the "
+                "step returns)")
 
     # -- the executor interface ----------------------------------------------------------
     def run(self, tasks: Sequence[PassTask], on_report: Callable[[int, PassReport], None]) -> None:
