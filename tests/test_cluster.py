@@ -150,7 +150,7 @@ def test_a_data_file_that_differs_on_a_worker_is_one_line(address: str) -> None:
     ex = ClusterExecutor(address)
     try:
         # as if the client's copy of this file had other bytes than the workers'
-        ex._files[task.case.instance.name + task.case.instance.definition_hash()] = ((path, "0" * 64),)
+        ex._files[repr(task.case.instance)] = ((path, "0" * 64),)
         with pytest.raises(UserError) as err:
             ex.run([task], lambda i, rep: None)
     finally:

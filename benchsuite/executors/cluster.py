@@ -10,9 +10,11 @@ so counts and fingerprints are those of a local run. Reports are handed to
 
 What travels: a task is a :class:`~benchsuite.cases.Case` (the instance's
 *definition*, never its data) and a seed. Each worker builds the problem from
-the definition and its seed and looks up or certifies the optimum itself;
-:func:`benchsuite.monitor.built` caches the last few built instances per
-worker process, so the cases of one instance on one worker build it once.
+the definition and its seed and looks up or certifies the optimum itself (the
+first worker process on a machine certifies it while the others wait for a
+lock and then read the cached result); :func:`benchsuite.monitor.built`
+caches the last few built instances per worker process, and tasks are started
+instance by instance, so the cases of one instance on one worker build it once.
 
 **Data files.** An instance whose parameters name files (a NIST StRD file, a
 user's data file) reads them *on the worker, at the same absolute path*: a
@@ -35,8 +37,8 @@ copy under another path on the worker would be another problem.
   die more often than that is reported with status ``error``.
 * A pass that overruns its timeout stops itself at its next check (status
   ``timeout``). A step that never returns: ``timeout x (1 + SHADOWS with the
-  envelope) + KILL_GRACE`` seconds after the task *started* (each task logs a
-  start event), its future is cancelled, the pass is reported ``timeout`` and
+  envelope) + KILL_GRACE`` seconds after the pass *started* (each task logs
+  an event once its problem is built), its future is cancelled, the pass is reported ``timeout`` and
   the worker is restarted through its nanny (a Python thread cannot be
   stopped; a worker started with ``--no-nanny`` cannot be restarted and keeps
   one thread busy until the step returns). Other tasks that were on that
@@ -201,8 +203,38 @@ def _check_files(files: Sequence[tuple[str, str]], instance: str) -> None:
         _CHECKED.add((path, digest))
 
 
+_WARM: set[tuple[str, str | None]] = set()  # (instance, dtype) built in this process
+
+
+def _warm(case: Any) -> None:
+    """Build the case's problem and certified optimum once per worker process, one process per machine at a time.
+
+    The first process on a machine to need an instance certifies its optimum
+    (and caches it on disk) while the others wait for the lock and then read
+    the cache, instead of every worker process certifying the same optimum at
+    once (minutes, and memory, for a large instance).
+    """
+    import platform
+
+    import distributed
+
+    from benchsuite.monitor import built
+
+    inst = case.instance
+    k = (repr(inst), case.dtype)  # the definition as given (no file hashing per task)
+    if k in _WARM:
+        return
+    ident = hashlib.sha256(k[0].encode()).hexdigest()[:16]
+    with distributed.Lock(f"benchsuite-build:{platform.node()}:{inst.name}:{ident}:{case.dtype}"):
+        try:
+            built(inst, dtype=case.dtype)
+        except Exception:  # run_pass builds again and reports the failure with the case
+            return
+    _WARM.add(k)
+
+
 def _pass_on_worker(task: PassTask, threads: int, files: tuple[tuple[str, str], ...], key: str) -> PassReport:
-    """One monitored pass on a worker: check data files, log the start, run with BLAS pinned."""
+    """One monitored pass on a worker: check data files, build, log the start, run with BLAS pinned."""
     import distributed
     from threadpoolctl import threadpool_limits
 
@@ -210,9 +242,10 @@ def _pass_on_worker(task: PassTask, threads: int, files: tuple[tuple[str, str], 
 
     _check_files(files, task.case.instance.name)
     worker = distributed.get_worker()
-    worker.log_event(_STARTED, {"key": key, "worker": worker.address})
     with threadpool_limits(limits=threads):
-        return run_pass(task)
+        _warm(task.case)
+        # the hung-step clock starts once the problem is built, as for a local worker
+        return run_pass(task, ready=lambda: worker.log_event(_STARTED, {"key": key, "worker": worker.address}))
 
 
 def _time_on_worker(result: Any, repeats: int, threads: int, files: tuple[tuple[str, str], ...]) -> Any:
@@ -247,6 +280,23 @@ def _rule_modules(cases: Sequence[Any]) -> list[str]:
     return sorted({c.rule.name.split(":")[0] for c in cases if ":" in c.rule.name})
 
 
+def _order(tasks: Sequence[PassTask]) -> list[int]:
+    """Task indices in the order to start them (results do not depend on it).
+
+    The tasks of one instance together, so that a worker meets an instance in
+    one stretch and its per-process cache (the last few instances built)
+    holds; instances with the largest iteration budget first, and inside an
+    instance the largest budget first, so that no long pass is left to run
+    alone at the end.
+    """
+    group = [(tasks[t].case.instance.name, repr(tasks[t].case.instance), str(tasks[t].case.dtype))
+             for t in range(len(tasks))]
+    most: dict[tuple[str, str, str], int] = {}
+    for t, g in enumerate(group):
+        most[g] = max(most.get(g, 0), tasks[t].case.run_budget)
+    return sorted(range(len(tasks)), key=lambda t: (-most[group[t]], group[t], -tasks[t].case.run_budget, t))
+
+
 class ClusterExecutor:
     """Passes as Dask tasks (see the module docstring)."""
 
@@ -275,7 +325,7 @@ class ClusterExecutor:
         self._started[msg["key"]] = (time.monotonic(), msg["worker"])
 
     def _files_of(self, instance: Any) -> tuple[tuple[str, str], ...]:
-        k = instance.name + instance.definition_hash()
+        k = repr(instance)
         if k not in self._files:
             self._files[k] = _instance_files(instance)
         return self._files[k]
@@ -359,13 +409,13 @@ class ClusterExecutor:
         _check_workers(self.client, self.address, _rule_modules([t.case for t in tasks]))
         futures: dict[str, int] = {}
         self._futures = {}
-        for tid, task in enumerate(tasks):
+        for rank, tid in enumerate(_order(tasks)):
+            task = tasks[tid]
             key = f"benchsuite-pass-{self._token}-{tid:06d}"
             futures[key] = tid
-            # larger iteration budgets first (higher priority runs earlier); results do not depend on it
             self._futures[key] = self.client.submit(
                 _pass_on_worker, task, self.threads, self._files_of(task.case.instance), key,
-                key=key, pure=False, priority=task.case.run_budget)
+                key=key, pure=False, priority=len(tasks) - rank)
 
         def failed(tid: int, status: str, message: str) -> PassReport:
             return failed_report(tasks[tid].case, tasks[tid].seed, status, message)
