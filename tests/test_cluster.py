@@ -198,3 +198,16 @@ def test_the_runner_does_not_import_dask() -> None:
             "print(sorted(m for m in sys.modules if m.split('.')[0] in ('dask', 'distributed')))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+
+
+def test_tasks_start_instance_by_instance_largest_budget_first() -> None:
+    cat = load_catalogue()
+    a, b = cat["mgh-beale"], cat["lsq-kappa1e2-500x50"]
+    gd, adam = parse_rule("gd"), parse_rule("adam")
+    tasks = [PassTask(Case(a, gd, budget=10), 0), PassTask(Case(b, gd, budget=50), 0),
+             PassTask(Case(a, adam, budget=100), 0), PassTask(Case(b, adam, budget=20), 0),
+             PassTask(Case(a, gd, budget=10, dtype="float32"), 0)]
+    order = cluster_mod._order(tasks)
+    assert sorted(order) == list(range(len(tasks)))
+    # beale (largest budget 100) first, its tasks together, largest first; then lsq; float32 beale is its own group
+    assert order == [2, 0, 1, 3, 4]
