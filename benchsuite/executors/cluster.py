@@ -33,7 +33,9 @@ copy under another path on the worker would be another problem.
 * A worker that dies mid-pass: the scheduler reruns the task elsewhere
   (``distributed.scheduler.allowed-failures``, default 3). The rerun starts
   from scratch with the same seed, so its report equals what the lost run
-  would have given; each task is reported exactly once. A task whose workers
+  would have given; each task is reported exactly once, and its hung-step
+  clock restarts with the rerun (before cancelling, the client asks the
+  scheduler whether the task still runs where it started). A task whose workers
   die more often than that is reported with status ``error``.
 * A pass that overruns its timeout stops itself at its next check (status
   ``timeout``). A step that never returns: ``timeout x (1 + SHADOWS with the
@@ -355,6 +357,9 @@ class ClusterExecutor:
                     lim = limit(tid)
                     if lim is None or now < seen[0] + lim:
                         continue
+                    if self._processing_on(key) != seen[1]:  # its worker died; a rerun logs a new start
+                        self._started.pop(key, None)
+                        continue
                     done.add(tid)
                     self._futures[key].cancel()
                     note = self._restart(seen[1])
@@ -385,6 +390,17 @@ class ClusterExecutor:
             return failed(tid, "error", "the workers running this task died too often "
                                         f"(distributed.scheduler.allowed-failures): {_first_line(exc)}")
         return failed(tid, "error", f"{type(exc).__name__}: {_first_line(exc)}")
+
+    def _processing_on(self, key: str) -> str | None:
+        """The worker the scheduler has the task running on now (None: waiting, done or unknown)."""
+        def where(dask_scheduler: Any) -> str | None:  # runs on the scheduler (pickled by value)
+            ts = dask_scheduler.tasks.get(key)
+            return ts.processing_on.address if ts is not None and ts.processing_on is not None else None
+
+        try:
+            return self.client.run_on_scheduler(where)
+        except Exception:  # cannot tell: trust the start event
+            return self._started.get(key, (0.0, None))[1]
 
     def _restart(self, worker: str) -> str:
         """Ask the worker's nanny for a fresh process, in the background (it may take a while)."""
