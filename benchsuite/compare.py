@@ -4,7 +4,8 @@ Both sides are measured in one run:
 
 1. **Monitored pass** on each side (the runner's ``run_cases`` without
    timing) gives the iterations to each target. A side that misses a target
-   the other side reaches has *lost* it: such a case gets no time figure at
+   the other side reaches (and holds to the end of its pass) has *lost* it
+   -- a target met only transiently counts as missed: such a case gets no time figure at
    all, only the list of lost targets (a faster step that no longer converges
    is not a speed-up), and a speed limit (below) fails.
 2. **Timed replays, interleaved.** Per case, the target timed is the tightest
@@ -452,9 +453,16 @@ class _Monitored:
     """A side's monitored pass of one case, reduced to what the comparison uses."""
 
     status: str
-    iters: tuple[int | None, ...]  # first seed
+    iters: tuple[int | None, ...]  # first seed: first crossing of each target
     iterations_run: int
     label: str
+    held: tuple[int | None, ...] = ()  # from which iteration each target stayed met (empty: not recorded)
+
+    def reached(self) -> tuple[bool, ...]:
+        """Per target: met and held to the end of the pass (first crossing where holding is not recorded)."""
+        if self.held:
+            return tuple(h is not None for h in self.held)
+        return tuple(k is not None for k in self.iters)
 
 
 class _Engine:
@@ -478,7 +486,8 @@ class _Engine:
         out = []
         for r in results:
             o = r.outcomes[0]
-            out.append(_Monitored(status=r.status, iters=tuple(o.iters), iterations_run=o.iterations_run, label=spec.label))
+            out.append(_Monitored(status=r.status, iters=tuple(o.iters), iterations_run=o.iterations_run,
+                                  label=spec.label, held=tuple(getattr(o, "held", ()) or ())))
         return out
 
     def replay(self, index: int, k: int, inner: int, clock: str = "cpu") -> float:
@@ -653,17 +662,23 @@ def worktree(rev: str, cwd: Path, option: str = "--rev") -> Iterator[Path]:
 
 # ------------------------------------------------------------ the comparison
 def _lost(a: _Monitored, b: _Monitored, targets: Sequence[float]) -> tuple[tuple[float, ...], tuple[float, ...]]:
-    """(targets A lost, targets B lost): reached by one side and not by the other."""
-    lost_a = tuple(t for t, ka, kb in zip(targets, a.iters, b.iters) if ka is None and kb is not None)
-    lost_b = tuple(t for t, ka, kb in zip(targets, a.iters, b.iters) if kb is None and ka is not None)
+    """(targets A lost, targets B lost): reached (and held) by one side and not by the other.
+
+    A target met only transiently (crossed, then left before the end of the
+    pass) counts as not reached when the other side holds it.
+    """
+    ra, rb = a.reached(), b.reached()
+    lost_a = tuple(t for t, x, y in zip(targets, ra, rb) if not x and y)
+    lost_b = tuple(t for t, x, y in zip(targets, ra, rb) if x and not y)
     return lost_a, lost_b
 
 
 def _timed_steps(a: _Monitored, b: _Monitored, targets: Sequence[float]) -> tuple[float | None, int, int]:
     """(target, k_A, k_B): the tightest target both reached, else equal step counts."""
+    ra, rb = a.reached(), b.reached()
     for i in range(len(targets) - 1, -1, -1):
         ka, kb = a.iters[i], b.iters[i]
-        if ka is not None and kb is not None and ka > 0 and kb > 0:
+        if ra[i] and rb[i] and ka is not None and kb is not None and ka > 0 and kb > 0:
             return targets[i], ka, kb
     k = max(1, min(a.iterations_run, b.iterations_run))
     return None, k, k

@@ -21,7 +21,7 @@ import numpy as np
 import pytest
 
 import virtual_clock
-from benchsuite import runner
+from benchsuite import timing
 from benchsuite.compare import (
     EXIT_CODES,
     MIN_PAIRS,
@@ -281,6 +281,9 @@ def test_a_side_that_loses_targets_gets_no_time_figure() -> None:
     assert not partial.timed and partial.lost_a == (1e-6,)
     same = _plan(_Inst, mon((10, 40, None, None), "partial"), mon((12, 44, None, None), "partial"))
     assert same.timed and (same.target, same.ka, same.kb) == (1e-4, 40, 44)
+    transient = _plan(_Inst, mon((10, 40, 80, 120)), _Monitored("unstable", (10, 40, 80, 110), 1000, "r",
+                                                                  held=(10, 40, 80, None)))
+    assert not transient.timed and transient.lost_b == (1e-8,)  # B only dipped below 1e-8
     none = _plan(_Inst, mon((None,) * 4, "budget", 1000), mon((None,) * 4, "budget", 1000))
     assert none.timed and none.target is None and none.ka == none.kb == 1000
 
@@ -320,7 +323,7 @@ def test_summary_never_calls_a_side_that_lost_targets_faster() -> None:
 # Plumbing with the virtual clock: each CostedAdam step costs `cost` virtual seconds.
 @pytest.fixture
 def vclock(monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setitem(runner.CLOCKS, "cpu", virtual_clock.clock)
+    monkeypatch.setitem(timing.CLOCKS, "cpu", virtual_clock.clock)
 
 
 def costed(cost: float, lr: float = 0.1, jitter: float = 0.0) -> Side:

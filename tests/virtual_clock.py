@@ -3,8 +3,8 @@
 Each step of :class:`CostedAdam` advances a virtual time by a planted cost,
 scaled per replay by ``exp(jitter * z)`` with z drawn from a seeded generator
 (so the replays of one side differ as real ones do, but identically on every
-run). :func:`clock` reads that virtual time; installing it as the runner's
-``"cpu"`` clock (compare's default) makes a replay's measured seconds the sum
+run). :func:`clock` reads that virtual time; installing it as the timing
+replay's ``"cpu"`` clock (compare's default) makes a replay's measured seconds the sum
 of the planted costs. Self-contained (numpy only) so that a copy can serve as
 a user's module at a git revision.
 """
@@ -25,9 +25,9 @@ def clock() -> float:
 
 def install() -> None:
     """Make the virtual time the runner's "cpu" clock in this process."""
-    from benchsuite import runner
+    from benchsuite import timing
 
-    runner.CLOCKS["cpu"] = clock
+    timing.CLOCKS["cpu"] = clock
 
 
 class CostedAdam:
