@@ -19,6 +19,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import virtual_clock
 from benchsuite import timing
@@ -597,3 +599,22 @@ def test_interrupt_during_revision_compare(tmp_path: Path, how: str) -> None:
     assert proc.returncode == 130, err
     assert err == "benchsuite: interrupted\n", err  # nothing from the worker processes
     assert _git(repo, "worktree", "list").count("\n") == 1
+
+
+# ------------------------------------------------------------------------------
+# Laws of the interval.
+_times = st.lists(st.floats(1e-4, 1e-2), min_size=2, max_size=40)
+
+
+@settings(max_examples=60, deadline=None)
+@given(_times, st.floats(0.5, 2.0), st.integers(0, 2**32 - 1))
+def test_scaling_b_scales_the_ratio_and_swapping_inverts_it(ta: list[float], c: float, seed: int) -> None:
+    tb = np.asarray(ta) * np.exp(np.random.default_rng(seed).normal(0, 0.05, len(ta)))
+    base = case_change(ta, tb)
+    scaled = case_change(ta, c * tb)
+    swapped = case_change(tb, ta)
+    # exact in exact arithmetic; 1e-9 relative covers the round-off of logs and sorting
+    assert scaled.ratio == pytest.approx(c * base.ratio, rel=1e-9)
+    assert scaled.interval[0] == pytest.approx(c * base.interval[0], rel=1e-9)
+    assert swapped.ratio == pytest.approx(1 / base.ratio, rel=1e-9)
+    assert swapped.interval[1] == pytest.approx(1 / base.interval[0], rel=1e-9)
