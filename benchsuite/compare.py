@@ -4,10 +4,11 @@ Both sides are measured in one run:
 
 1. **Monitored pass** on each side (the runner's ``run_cases`` without
    timing) gives the iterations to each target. A side that misses a target
-   the other side reaches (and holds to the end of its pass) has *lost* it
-   -- a target met only transiently counts as missed: such a case gets no time figure at
-   all, only the list of lost targets (a faster step that no longer converges
-   is not a speed-up), and a speed limit (below) fails.
+   the other side reaches has *lost* it; where the runner records held
+   crossings, "reaches" means "holds to the end of the pass", so a target met
+   only in a transient dip counts as missed. A case with a lost target gets
+   no time figure at all, only the list of lost targets (a faster step that
+   no longer converges is not a speed-up), and a speed limit (below) fails.
 2. **Timed replays, interleaved.** Per case, the target timed is the tightest
    target both sides reached (when neither reached any, both replay the same
    number of steps and only the time per step applies). Each side replays its
@@ -70,7 +71,7 @@ ignore SIGINT and are stopped by the parent, so they print no traceback).
 Two processes are never quite identical (memory layout, allocator state):
 measured on a busy 2-core machine, six A/A comparisons of one revision against
 itself in one pair of processes gave ratios from 0.92 to 1.02, two of them with
-intervals excluding 1. So the pairs are spread over ``PROCESS_PAIRS``
+intervals excluding 1. So the pairs are spread over ``PROCESS_PAIRS`` (5)
 successive pairs of fresh processes and, with two or more, the process pair is
 the unit of the interval: per case, the mean over process pairs of their
 trimmed means, with a t interval on ``P - 1`` degrees of freedom. Treating
