@@ -773,7 +773,8 @@ def compare(
     """Measure B against A on the selected problems (see the module docstring).
 
     ``pairs``: interleaved replay pairs per case (at least ``MIN_PAIRS``).
-    ``process_pairs`` (git revisions only; default ``PROCESS_PAIRS``): the
+    ``process_pairs`` (git revisions only; default ``PROCESS_PAIRS``, at
+    most ``pairs``): the
     pairs of each case are spread over this many successive pairs of fresh
     worker processes. ``fail_above``: the speed limit (a fraction, 0.05 for
     5 %), judged by ``Comparison.verdict``.
@@ -789,7 +790,7 @@ def compare(
     workers = a.rev is not None or b.rev is not None
     if process_pairs is not None and not workers:
         raise UserError("--process-pairs: only with --rev-a/--rev-b (both sides otherwise share one process)")
-    n_proc = (PROCESS_PAIRS if workers else 1) if process_pairs is None else process_pairs
+    n_proc = (min(PROCESS_PAIRS, pairs) if workers else 1) if process_pairs is None else process_pairs
     if n_proc < 1 or n_proc > pairs:
         raise UserError(f"--process-pairs: need 1 <= process pairs <= pairs ({pairs}), got {n_proc}")
     instances = tuple(select(load_catalogue(list(catalogue_paths) or None), problems, tier, validate=True))
