@@ -258,12 +258,64 @@ class RunRequest:
 
 @dataclass(frozen=True)
 class Plan:
-    """The cases of a request, with sweep bookkeeping and what was skipped."""
+    """The cases of a request, with sweep bookkeeping, what was skipped and notes for the user."""
 
     cases: tuple[Case, ...]
     #: case key -> (sweep group, swept value) for sweep grid points
     grid: dict[str, tuple[str, float]] = field(default_factory=dict)
     skipped: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+
+def split_rule(text: str) -> tuple[str, dict[str, Any]]:
+    """``"adam(lr=0.01, beta2=0.99)"`` -> ``("adam", {"lr": 0.01, "beta2": 0.99})``; a bare name has none.
+
+    The same form as the rule labels the tool prints, so a label can be pasted
+    back as ``--rule``. Commas inside brackets (``betas=(0.9, 0.999)``) belong
+    to the value.
+    """
+    from benchsuite.rulespec import parse_param
+
+    text = text.strip()
+    if not text.endswith(")") or "(" not in text:
+        return text, {}
+    name, inner = text[: text.index("(")].strip(), text[text.index("(") + 1 : -1]
+    parts, depth, cur = [], 0, ""
+    for ch in inner:
+        if ch in "([":
+            depth += 1
+        elif ch in ")]":
+            depth -= 1
+        if ch == "," and depth == 0:
+            parts.append(cur)
+            cur = ""
+        else:
+            cur += ch
+    if cur.strip():
+        parts.append(cur)
+    merged: list[str] = []
+    for part in parts:  # a label prints a list unbracketed (betas=0.9,0.999): rejoin its items
+        if "=" not in part and merged:
+            merged[-1] += "," + part
+        else:
+            merged.append(part)
+    parts = merged
+    params: dict[str, Any] = {}
+    for part in parts:
+        key, eq, raw = part.strip().partition("=")
+        raw = raw.strip()
+        if raw[:1] in "([" and raw[-1:] in ")]":  # a bracketed list, as in betas=(0.9, 0.999)
+            raw = raw[1:-1]
+        try:
+            k, v = parse_param(f"{key}{eq}{raw}")
+        except UserError as exc:
+            raise UserError(f"--rule {text!r}: {str(exc).split(': ', 1)[-1]}") from None
+        if k in params:
+            raise UserError(f"--rule {text!r}: {k} is given twice")
+        params[k] = v
+    if not name:
+        raise UserError(f"--rule {text!r}: no rule name before the parentheses")
+    return name, params
 
 
 def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") -> Plan:
@@ -277,9 +329,13 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
     instances = select(cat, req.problems, tier=req.tier, validate=True)
     if not instances:
         raise UserError(f"no problems selected (--problems {req.problems!r}, --tier {req.tier})")
-    names = list(req.rules) or list(DEFAULT_RULES)
-    for name in names:
-        parse_rule(name)  # an unknown rule fails here, before any work
+    rules = [split_rule(r) for r in (list(req.rules) or list(DEFAULT_RULES))]
+    for name, own in rules:
+        parse_rule(name, own)  # an unknown rule fails here, before any work
+        clash = sorted(set(own) & {k for k, _ in req.params})
+        if clash:
+            raise UserError(f"--rule {name}: {', '.join(clash)} given both in the rule and in --param")
+    notes: list[str] = []
     chosen: dict[tuple[str, str], dict[str, Any]] = {}
     if req.params_from:
         from benchsuite.results import RunDir
@@ -290,6 +346,11 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
         if not meta.get("selected"):
             raise UserError(f"--params-from {req.params_from}: that run has no sweep selection")
         chosen = selection_table(meta["selected"])
+        swept_rules = {r for _, r in chosen}
+        for name, _ in rules:
+            if name not in swept_rules:
+                notes.append(f"--params-from {req.params_from}: that run did not sweep {name}; "
+                             "it runs with its own hyperparameters")
     sweep = parse_sweep(req.sweep) if req.sweep else None
     oracle = "full" if req.batch is None else "minibatch"
     seeds = (0,) if oracle == "full" else tuple(range(req.seeds or 5))
@@ -311,8 +372,8 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
     grid: dict[str, tuple[str, float]] = {}
     checked: set[Any] = set()
     for inst in instances:
-        for name in names:
-            base = {**chosen.get((inst.name, name), {}), **dict(req.params)}
+        for name, own in rules:
+            base = {**chosen.get((inst.name, name), {}), **own, **dict(req.params)}
             points = [(None, base)] if sweep is None else [(v, {**base, sweep.name: v}) for v in sweep.values]
             for value, p in points:
                 spec = parse_rule(name, p)
@@ -324,7 +385,7 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
                 if value is not None:
                     group = f"{inst.name} | {parse_rule(name, base).label}"
                     grid[case.key()] = (group, value)
-    return Plan(tuple(cases), grid, tuple(skipped))
+    return Plan(tuple(cases), grid, tuple(skipped), tuple(notes))
 
 
 def sweep_selection(plan: Plan, results: Sequence[CaseResult], sweep_name: str) -> list[dict[str, Any]]:
@@ -371,6 +432,7 @@ class RunOutcome:
     status: str
     selected: tuple[dict[str, Any], ...]
     skipped: tuple[str, ...]
+    notes: tuple[str, ...] = ()
 
 
 def _now() -> str:
@@ -464,7 +526,7 @@ def execute(
     selected = sweep_selection(plan, results, parse_sweep(req.sweep).name) if req.sweep else []
     frame = close("complete", results, selected)
     return RunOutcome(frame, tuple(results), rd.run_id if rd else None, str(rd.path) if rd else None,
-                      "complete", tuple(selected), plan.skipped)
+                      "complete", tuple(selected), plan.skipped, plan.notes)
 
 
 def _version() -> str:

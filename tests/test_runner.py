@@ -264,3 +264,30 @@ def test_replay_seconds_and_round_trip(quad) -> None:
     assert again == res
     df = to_frame([res])
     assert len(df) == len(case.run_targets) and list(df.iterations) == list(res.outcomes[0].iters)
+
+
+# -- per-rule hyperparameters and plan notes ---------------------------------------------------
+def test_split_rule_reads_the_printed_label_form() -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.runner import split_rule
+
+    assert split_rule("adam") == ("adam", {})
+    assert split_rule("adam(lr=0.01, beta2=0.99)") == ("adam", {"lr": 0.01, "beta2": 0.99})
+    assert split_rule("mod.sub:Rule(betas=(0.9, 0.999), lr=1e-3)") == ("mod.sub:Rule", {"betas": (0.9, 0.999), "lr": 1e-3})
+    # the label the tool prints round-trips
+    spec = parse_rule("adam", {"lr": 0.01, "eps": 1e-6, "betas": (0.8, 0.99)})
+    assert split_rule(spec.label) == ("adam", dict(spec.params))
+    for bad in ("adam(lr)", "adam(lr=1, lr=2)", "(lr=1)"):
+        with pytest.raises(UserError, match="--rule"):
+            split_rule(bad)
+
+
+def test_one_run_gives_different_hyperparameters_to_different_rules() -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.runner import RunRequest, plan_cases
+
+    req = RunRequest.make(rules=["adam(lr=0.01)", "gd", "rmsprop(lr=0.001)"], problems="quad-diag-kappa10-d10")
+    plan = plan_cases(req, None)
+    assert [c.rule.label for c in plan.cases] == ["adam(lr=0.01)", "gd", "rmsprop(lr=0.001)"]
+    with pytest.raises(UserError, match="both in the rule and in --param"):
+        plan_cases(RunRequest.make(rules=["adam(lr=0.01)"], params=["lr=0.1"], problems="quad-diag-kappa10-d10"), None)
