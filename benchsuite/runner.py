@@ -213,12 +213,17 @@ class RunRequest:
     budget: int | None = None
     sweep: str | None = None
     params_from: str | None = None
+    horizon: tuple[int, float] = (100, 0.5)  # stay-converged horizon: max(steps, ceil(mult x k*))
+    dtype: str | None = None               # float32 / float64 override of every instance
+    start: int | None = None               # certified starting point (1 or 2) of StRD files given by path
 
     @classmethod
     def make(cls, *, rules: Sequence[str] | str | None = None, params: Sequence[str] | Mapping[str, Any] = (),
              problems: str | None = None, tier: str | None = "small", catalogue: Sequence[str] | None = None,
              batch: int | None = None, replace: bool = True, seeds: int | None = None, budget: int | None = None,
-             sweep: str | None = None, params_from: str | None = None) -> RunRequest:
+             sweep: str | None = None, params_from: str | None = None,
+             horizon: tuple[int, float] | str | None = None, dtype: str | None = None,
+             start: int | None = None) -> RunRequest:
         """A validated request: ``UserError`` for a malformed value."""
         from benchsuite.catalogue import TIERS
         from benchsuite.rulespec import parse_param
@@ -240,9 +245,14 @@ class RunRequest:
                 raise UserError(f"{flag} must be a positive integer, got {v!r}")
         if sweep is not None:
             parse_sweep(sweep)
+        if dtype is not None and dtype not in ("float32", "float64"):
+            raise UserError(f"--dtype {dtype!r}: expected float32 or float64")
+        if start is not None and (isinstance(start, bool) or start not in (1, 2)):
+            raise UserError(f"--start {start!r}: a NIST StRD file has certified starting points 1 and 2")
         return cls(tuple(rules or ()), tuple(sorted(items)), problems, tier, tuple(str(c) for c in catalogue or ()),
                    None if batch is None else int(batch), bool(replace), None if seeds is None else int(seeds),
-                   None if budget is None else int(budget), sweep, params_from)
+                   None if budget is None else int(budget), sweep, params_from,
+                   parse_horizon(horizon), dtype, None if start is None else int(start))
 
     def to_dict(self) -> dict[str, Any]:
         return _enc(asdict(self))
@@ -253,7 +263,24 @@ class RunRequest:
         d["rules"] = tuple(d.get("rules") or ())
         d["catalogue"] = tuple(d.get("catalogue") or ())
         d["params"] = tuple((k, tuple(v) if isinstance(v, list) else v) for k, v in d.get("params") or ())
+        d["horizon"] = parse_horizon(d.get("horizon"))  # runs recorded before the horizon existed: the default
         return cls(**d)
+
+
+def parse_horizon(value: tuple[int, float] | Sequence[Any] | str | None) -> tuple[int, float]:
+    """``"100,0.5"`` or ``(100, 0.5)`` -> ``(100, 0.5)``: at least 100 steps, or 0.5 x the iterations so far."""
+    if value is None:
+        return (100, 0.5)
+    parts = value.split(",") if isinstance(value, str) else list(value)
+    try:
+        if len(parts) != 2:
+            raise ValueError
+        steps, mult = int(str(parts[0]).strip()), float(str(parts[1]).strip())
+    except ValueError:
+        raise UserError(f"--horizon {value!r}: expected STEPS,MULTIPLE (e.g. 100,0.5)") from None
+    if steps < 0 or not (0 <= mult < float("inf")):
+        raise UserError(f"--horizon {value!r}: steps and multiple must be >= 0 and finite")
+    return (steps, mult)
 
 
 @dataclass(frozen=True)
@@ -327,6 +354,8 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
 
     cat = load_catalogue(list(req.catalogue) or None)
     instances = select(cat, req.problems, tier=req.tier, validate=True)
+    if req.start is not None:
+        instances = [_at_start(inst, req.start) for inst in instances]
     if not instances:
         raise UserError(f"no problems selected (--problems {req.problems!r}, --tier {req.tier})")
     rules = [split_rule(r) for r in (list(req.rules) or list(DEFAULT_RULES))]
@@ -380,12 +409,22 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
                 if spec not in checked:
                     build_rule(spec, None)  # hyperparameter names and values, once per spec
                     checked.add(spec)
-                case = Case(inst, spec, oracle, req.batch, req.replace, seeds, budget=req.budget)
+                case = Case(inst, spec, oracle, req.batch, req.replace, seeds, budget=req.budget,
+                            horizon=req.horizon, dtype=req.dtype)
                 cases.append(case)
                 if value is not None:
                     group = f"{inst.name} | {parse_rule(name, base).label}"
                     grid[case.key()] = (group, value)
     return Plan(tuple(cases), grid, tuple(skipped), tuple(notes))
+
+
+def _at_start(inst: Any, start: int) -> Any:
+    """A StRD file given by path, at its certified starting point ``start``."""
+    from benchsuite.catalogue import instance_from_strd
+
+    if inst.family != "nist_strd" or inst.source.endswith(".toml"):
+        raise UserError(f"--start: {inst.name} is a catalogue instance; --start applies to NIST StRD files given by path")
+    return inst if dict(inst.params).get("start") == start else instance_from_strd(inst.source, start)
 
 
 def sweep_selection(plan: Plan, results: Sequence[CaseResult], sweep_name: str) -> list[dict[str, Any]]:
@@ -548,6 +587,9 @@ def run(
     budget: int | None = None,
     sweep: str | None = None,
     params_from: str | None = None,
+    horizon: tuple[int, float] | str | None = None,
+    dtype: str | None = None,
+    start: int | None = None,
     jobs: int | None = None,
     threads: int = 1,
     repeats: int = 5,
@@ -567,7 +609,10 @@ def run(
     problems only; others are skipped) sampled with or without ``replace``;
     ``seeds``: seeds per stochastic case (default 5); ``budget``: overrides
     the instances' iteration budgets; ``sweep``: ``name=lo:hi:n``;
-    ``params_from``: a run id whose sweep selection to reuse; ``out``: the
+    ``params_from``: a run id whose sweep selection to reuse; ``horizon``: the
+    stay-converged horizon ``(steps, multiple)``; ``dtype``: ``"float32"`` or
+    ``"float64"`` for every instance; ``start``: the certified starting point
+    of StRD files given by path; ``out``: the
     results folder (run directory + history; ``None`` writes nothing);
     ``resume``: complete an interrupted run (the other arguments are then
     taken from it). Execution settings (``jobs``, ``threads``, ``repeats``,
@@ -576,6 +621,7 @@ def run(
     req = None if resume else RunRequest.make(
         rules=rules, params=params, problems=problems, tier=tier, catalogue=catalogue, batch=batch,
         replace=replace, seeds=seeds, budget=budget, sweep=sweep, params_from=params_from,
+        horizon=horizon, dtype=dtype, start=start,
     )
     return execute(req, jobs=jobs, threads=threads, repeats=repeats, timeout=timeout, timing=timing,
                    out=out, resume=resume, progress=progress).frame

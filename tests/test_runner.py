@@ -291,3 +291,30 @@ def test_one_run_gives_different_hyperparameters_to_different_rules() -> None:
     assert [c.rule.label for c in plan.cases] == ["adam(lr=0.01)", "gd", "rmsprop(lr=0.001)"]
     with pytest.raises(UserError, match="both in the rule and in --param"):
         plan_cases(RunRequest.make(rules=["adam(lr=0.01)"], params=["lr=0.1"], problems="quad-diag-kappa10-d10"), None)
+
+
+def test_request_horizon_dtype_and_start_are_validated_and_reach_the_cases(tmp_path) -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.runner import RunRequest, parse_horizon, plan_cases
+
+    assert parse_horizon(None) == (100, 0.5) and parse_horizon("10,2") == (10, 2.0) and parse_horizon([0, 0]) == (0, 0.0)
+    for bad in ("10", "a,b", "-1,0.5", "1,inf"):
+        with pytest.raises(UserError, match="--horizon"):
+            parse_horizon(bad)
+    req = RunRequest.make(rules="gd", problems="quad-diag-kappa10-d10", horizon="10,2", dtype="float32")
+    (case,) = plan_cases(req, None).cases
+    assert case.horizon == (10, 2.0) and case.dtype == "float32"
+    assert RunRequest.from_dict(req.to_dict()) == req
+    old = req.to_dict()
+    del old["horizon"], old["dtype"], old["start"]  # meta.json of a run recorded before these existed
+    assert RunRequest.from_dict(old).horizon == (100, 0.5)
+    with pytest.raises(UserError, match="--dtype"):
+        RunRequest.make(dtype="float16")
+    with pytest.raises(UserError, match="--start"):
+        RunRequest.make(start=3)
+    with pytest.raises(UserError, match="catalogue instance"):
+        plan_cases(RunRequest.make(rules="gd", problems="nist-misra1a", start=2), None)
+    # a StRD file given by path runs from its second certified start
+    dat = Path(__file__).parents[1] / "benchsuite" / "data" / "strd" / "Misra1a.dat"
+    (case,) = plan_cases(RunRequest.make(rules="gd", problems=str(dat), start=2), None).cases
+    assert case.instance.name == "Misra1a-start2" and dict(case.instance.params)["start"] == 2
