@@ -66,8 +66,9 @@ With ``rev_a`` / ``rev_b`` each side runs in its own Python process whose
 ``sys.path`` starts with a temporary ``git worktree`` of that revision, so each
 imports its own version of the user's module; the parent sends the replay
 requests to the two processes in turn over pipes and removes the worktrees
-afterwards, also on error and on Ctrl-C / SIGTERM (the worker processes
-ignore SIGINT and are stopped by the parent, so they print no traceback).
+afterwards, also on error and on Ctrl-C / SIGTERM (the worker processes run
+in their own session, ignore SIGINT and are stopped by the parent, so they
+print no traceback).
 Two processes are never quite identical (memory layout, allocator state):
 measured on a busy 2-core machine, six A/A comparisons of one revision against
 itself in one pair of processes gave ratios from 0.92 to 1.02, two of them with
@@ -513,18 +514,15 @@ class _LocalSide:
         pass
 
 
-def _ignore_sigint() -> None:  # runs in the child before exec: SIG_IGN survives exec
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-
-
 _STOP_CODES = (-signal.SIGINT, -signal.SIGTERM, 128 + signal.SIGTERM)
 
 
 class _WorkerSide:
     """A side served by its own Python process with ``front`` first on sys.path.
 
-    The process ignores SIGINT (a Ctrl-C reaches the whole process group; the
-    parent alone handles it and stops the worker), so it prints no traceback.
+    The process runs in its own session and ignores SIGINT: a Ctrl-C reaches
+    only the parent, which stops the worker (SIGTERM, on which the worker
+    unwinds quietly), so no traceback comes from it.
     """
 
     def __init__(self, front: Path, cwd: Path) -> None:
@@ -533,7 +531,10 @@ class _WorkerSide:
             stdin=subprocess.PIPE,
             stdout=subprocess.PIPE,
             cwd=cwd,
-            preexec_fn=_ignore_sigint if os.name == "posix" else None,
+            # its own session: a Ctrl-C or a CI's SIGTERM to our process group does not reach it
+            # (the parent alone handles them and stops it; no traceback from here). setsid runs in C,
+            # unlike a preexec_fn, so it is safe with BLAS threads running.
+            start_new_session=True,
         )
 
     def _call(self, *request: Any) -> Any:
