@@ -26,6 +26,8 @@ def parse_limit(text: str) -> float:
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.epilog = ("exit codes: 0 done (with --fail-above: passed), 1 the speed limit failed (or B loses a target A "
+                "reaches), 3 undecided (the interval contains the limit), 2 usage error, 130 interrupted")
     p.add_argument("a", help="rule A: built-in name or import path (with --runs: a run id)")
     p.add_argument("b", nargs="?", default=None, help="rule B (default: the same as A, e.g. with --rev-a/--rev-b)")
     p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
