@@ -262,9 +262,13 @@ def explain(outcome: Any, targets: Sequence[float]) -> str | None:
     k = outcome.iterations_run
     if outcome.status == "diverged":
         m = outcome.final_measure
-        what = "a non-finite value" if not math.isfinite(m) else f"measure {m:.3g}"
-        return (f"diverged at iteration {k}: {what} (the limit is {DIVERGED_ABOVE:.0e} x the start); "
-                "a smaller step size may help")
+        if not math.isfinite(m):
+            what = "the measure became non-finite"
+        elif m > DIVERGED_ABOVE:
+            what = f"the measure reached {m:.3g}, above {DIVERGED_ABOVE:.0e} x its start"
+        else:
+            what = "the objective became non-finite"
+        return f"diverged at iteration {k}: {what}; a smaller step size may help"
     if outcome.status == "unstable":
         reached = outcome.iters[-1] if outcome.iters else None
         left = getattr(outcome, "left_at", None)
