@@ -416,3 +416,11 @@ def test_dir_of_the_package_lists_run_and_stays_lazy() -> None:
             "print('run' in d, 'benchsuite.runner' in sys.modules, callable(benchsuite.run))")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert r.stdout.split() == ["True", "False", "True"], r.stderr
+
+
+def test_contract_violation_in_a_sweep_is_said_once(tmp_path: Path, capsys) -> None:
+    code, out, err = _run(capsys, "run", "--problems", "quad-diag-kappa10-d10", "--rule", "gd",
+                          "--rule", "faulty_rules:WrongShape", "--sweep", "lr=0.1:1:3", "--no-timing", "--jobs", "2",
+                          "--out", str(tmp_path))
+    errors = [line for line in err.splitlines() if line.startswith("benchsuite: error:")]
+    assert code == 2 and len(errors) == 1 and "and 2 more cases" in errors[0], err

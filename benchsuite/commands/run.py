@@ -160,13 +160,13 @@ def contract_violations(results: Sequence[Any]) -> list[str]:
             msg = _contract_message(r, o.error) if o.status == "error" else None
             if msg is None:
                 continue
-            label = r.case.rule.label
-            first.setdefault(label, (msg, r.case.instance.name))
-            count[label] = count.get(label, 0) + 1
+            name = r.case.rule.name  # a sweep's grid points are one rule
+            first.setdefault(name, (msg, r.case.instance.name))
+            count[name] = count.get(name, 0) + 1
             break  # once per case
     lines = []
-    for label, (msg, inst) in first.items():
-        more = count[label] - 1
+    for name, (msg, inst) in first.items():
+        more = count[name] - 1
         lines.append(f"{msg} (on {inst}" + (f", and {more} more case{'s' if more > 1 else ''})" if more else ")"))
     return lines
 
