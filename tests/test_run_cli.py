@@ -320,19 +320,27 @@ def test_history_since_is_validated(tmp_path: Path, capsys, since: str) -> None:
 
 
 def test_explanations_for_unstable_and_timeout() -> None:
-    from types import SimpleNamespace
-
     from benchsuite.commands.run import explain
 
-    unstable = SimpleNamespace(status="unstable", error=None, iters=(5, 9, 20, 31), iterations_run=131,
-                               final_measure=3e-8, left_at=47, horizon=100, horizon_worst=2.5e-6)
+    unstable = _outcome(0, "unstable", (5, 9, 20, 31), iterations_run=131, final_measure=3e-8, left_at=47,
+                        horizon=100, horizon_worst=2.5e-6, held=(5, 9, 20, None))
     line = explain(unstable, (1e-2, 1e-4, 1e-6, 1e-8))
-    assert line == ("unstable: reached 1e-08 at iteration 31 but rose above it again at iteration 47 "
-                    "(worst measure 2.5e-06 over the 100 steps run after reaching it)")
-    timeout = SimpleNamespace(status="timeout", error=None, iters=(5, None), iterations_run=4096, final_measure=0.1)
+    assert line == ("unstable: reached 1e-08 at iteration 31 but rose above it at iteration 47 and was above it "
+                    "at the end of the 100 steps run after (worst measure 2.5e-06)")
+    timeout = _outcome(0, "timeout", (5, None), iterations_run=4096, final_measure=0.1)
     assert explain(timeout, (1e-2, 1e-4)) == "timeout: stopped at iteration 4096 by the per-pass limit (--timeout)"
-    clean = SimpleNamespace(status="partial", error=None, iters=(5, None), iterations_run=10, final_measure=0.1)
+    clean = _outcome(0, "partial", (5, None), iterations_run=10, final_measure=0.1)
     assert explain(clean, (1e-2, 1e-4)) is None
+    diverged = _outcome(0, "diverged", (None, None), iterations_run=40, final_measure=3e13)
+    assert explain(diverged, (1e-2, 1e-4)) == ("diverged at iteration 40: the measure reached 3e+13, above 1e+12 x its "
+                                              "start; a smaller step size may help")
+
+
+def test_failed_statuses_are_the_runners_bad_ones() -> None:
+    from benchsuite.cases import BAD_STATUSES
+    from benchsuite.commands.run import FAILED
+
+    assert set(FAILED) == set(BAD_STATUSES)
 
 
 def test_sweep_summary_has_one_row_per_rule(tmp_path: Path, capsys) -> None:
@@ -424,3 +432,38 @@ def test_contract_violation_in_a_sweep_is_said_once(tmp_path: Path, capsys) -> N
                           "--out", str(tmp_path))
     errors = [line for line in err.splitlines() if line.startswith("benchsuite: error:")]
     assert code == 2 and len(errors) == 1 and "and 2 more cases" in errors[0], err
+
+
+KICKED = """
+import numpy as np
+
+
+class Kicked:
+    \"\"\"Gradient descent that, from step ``at`` on, adds ``kick`` to every coordinate (a planted bug).\"\"\"
+
+    def __init__(self, lr: float = 1.0, at: int = 80, kick: float = 1e-3) -> None:
+        self.lr, self.at, self.kick = lr, at, kick
+
+    def init(self, x0):
+        return 0
+
+    def step(self, x, g, k):
+        x = x - self.lr * g
+        if k + 1 >= self.at:
+            x = x + self.kick
+        return x, k + 1
+"""
+
+
+def test_unstable_case_exits_1_and_is_explained(tmp_path: Path, capsys, monkeypatch: pytest.MonkeyPatch) -> None:
+    (tmp_path / "kicked_rule.py").write_text(KICKED)
+    monkeypatch.syspath_prepend(str(tmp_path))  # forked workers inherit sys.path
+    # gd with lr = 1/L reaches 1e-8 on this instance at iteration 61 (see the first test); the kick from step 80
+    # moves the fixed point away from x*, so the pass ends its horizon above the tightest target
+    code, out, err = _run(capsys, "run", "--problems", "quad-diag-kappa10-d10", "--rule", "kicked_rule:Kicked",
+                          "--no-timing", "--jobs", "1", "--out", str(tmp_path / "out"))
+    assert code == 1, (out, err)
+    [row] = [line.split() for line in out.splitlines() if line.strip().startswith("kicked_rule:Kicked ")]
+    assert row[1] == "unstable"
+    problems = out.split("problems:")[1]
+    assert "unstable: reached 1e-08 at iteration 61 but rose above it at iteration 80" in problems, problems

@@ -255,7 +255,7 @@ def _summary(by_inst: dict[str, list[Any]], label_of: Any) -> list[str]:
 
 def explain(outcome: Any, targets: Sequence[float]) -> str | None:
     """Why a seed's pass did not end cleanly, in one line (None when it did)."""
-    from benchsuite.runner import DIVERGED_ABOVE
+    from benchsuite.cases import DIVERGED_ABOVE
 
     if outcome.error:
         return f"{outcome.status}: {_first_line(outcome.error)}"
@@ -272,14 +272,15 @@ def explain(outcome: Any, targets: Sequence[float]) -> str | None:
     if outcome.status == "unstable":
         reached = outcome.iters[-1] if outcome.iters else None
         left = getattr(outcome, "left_at", None)
-        worst = getattr(outcome, "horizon_worst", math.nan)
+        worst = getattr(outcome, "horizon_worst", None)
         horizon = getattr(outcome, "horizon", 0)
         tight = f"{targets[-1]:.0e}" if targets else "the tightest target"
-        text = f"unstable: reached {tight} at iteration {reached} but rose above it again"
+        text = f"unstable: reached {tight} at iteration {reached} but rose above it"
         if left is not None:
             text += f" at iteration {left}"
-        if horizon:
-            text += f" (worst measure {worst:.3g} over the {horizon} steps run after reaching it)"
+        text += f" and was above it at the end of the {horizon} steps run after" if horizon else " and ended above it"
+        if worst is not None and math.isfinite(worst):
+            text += f" (worst measure {worst:.3g})"
         return text
     if outcome.status == "timeout":
         return f"timeout: stopped at iteration {k} by the per-pass limit (--timeout)"
