@@ -44,5 +44,17 @@ def run(args: argparse.Namespace) -> int:
         return 0
     view = df[_SHOWN].copy()
     view["git_commit"] = view["git_commit"].fillna("-").str.slice(0, 10)
+    view["target"] = [f"{t:.0e}" for t in view["target"]]
+    view["time_to_target"] = [_seconds(t) for t in view["time_to_target"]]
+    view = view.astype(object).where(view.notna(), "-")  # missing: "-", not <NA> / None
     print(view.to_string(index=False))
     return 0
+
+
+def _seconds(v: object) -> str:
+    from benchsuite.commands.run import fmt_seconds
+
+    try:
+        return fmt_seconds(None if v is None else float(v))  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return "-"
