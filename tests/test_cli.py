@@ -158,7 +158,7 @@ def test_help_lists_exit_codes() -> None:
     assert top.returncode == 0 and "143 terminated (SIGTERM)" in " ".join(top.stdout.split())
     run = cli("run", "--help")
     text = " ".join(run.stdout.split())
-    for fragment in ("0 every case ran cleanly", "1 some case ended error, timeout, diverged or unstable",
+    for fragment in ("0 every case ran cleanly", "1 some case ended error, timeout or diverged, or unstable with --strict",
                      "2 usage error", "130 interrupted (Ctrl-C); 143 terminated (SIGTERM)",
                      "Writes ./results/runs/<run-id>/", "--replays N"):
         assert fragment in text, fragment

@@ -338,9 +338,9 @@ def test_explanations_for_unstable_and_timeout() -> None:
 
 def test_failed_statuses_are_the_runners_bad_ones() -> None:
     from benchsuite.cases import BAD_STATUSES
-    from benchsuite.commands.run import FAILED
+    from benchsuite.commands.run import FAILED, STRICT_FAILED
 
-    assert set(FAILED) == set(BAD_STATUSES)
+    assert set(STRICT_FAILED) == set(BAD_STATUSES) and set(STRICT_FAILED) - set(FAILED) == {"unstable"}
 
 
 def test_sweep_summary_has_one_row_per_rule(tmp_path: Path, capsys) -> None:
@@ -455,15 +455,20 @@ class Kicked:
 """
 
 
-def test_unstable_case_exits_1_and_is_explained(tmp_path: Path, capsys, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_unstable_case_is_explained_and_fails_with_strict(tmp_path: Path, capsys,
+                                                          monkeypatch: pytest.MonkeyPatch) -> None:
     (tmp_path / "kicked_rule.py").write_text(KICKED)
     monkeypatch.syspath_prepend(str(tmp_path))  # forked workers inherit sys.path
     # gd with lr = 1/L reaches 1e-8 on this instance at iteration 61 (see the first test); the kick from step 80
     # moves the fixed point away from x*, so the pass ends its horizon above the tightest target
     code, out, err = _run(capsys, "run", "--problems", "quad-diag-kappa10-d10", "--rule", "kicked_rule:Kicked",
                           "--no-timing", "--jobs", "1", "--out", str(tmp_path / "out"))
-    assert code == 1, (out, err)
+    assert code == 0, (out, err)  # a measurement, like partial: fails only with --strict
     [row] = [line.split() for line in out.splitlines() if line.strip().startswith("kicked_rule:Kicked ")]
     assert row[1] == "unstable"
     problems = out.split("problems:")[1]
     assert "unstable: reached 1e-08 at iteration 61 but rose above it at iteration 80" in problems, problems
+    code, out, err = _run(capsys, "run", "--problems", "quad-diag-kappa10-d10", "--rule", "kicked_rule:Kicked",
+                          "--strict", "--no-timing", "--jobs", "1", "--json", "--out", str(tmp_path / "out"))
+    assert code == 1 and json.loads(out)["failed"] == [
+        {"instance": "quad-diag-kappa10-d10", "rule": "kicked_rule:Kicked", "status": "unstable"}]

@@ -9,13 +9,21 @@ time to the tightest target), the run stored under ``./results/runs/<id>/``
 
 Exit codes (:data:`EPILOG`, also in ``run --help`` and the README): 0 when
 every case ran cleanly -- ``reached``, ``partial`` and ``budget`` are
-measurements, not failures; 1 when some case ended ``error``, ``timeout``,
-``diverged`` or ``unstable`` (with ``--sweep``, a diverged or unstable grid
+measurements, not failures, and so is ``unstable`` unless ``--strict``; 1
+when some case ended ``error``, ``timeout`` or ``diverged`` (or, with
+``--strict``, ``unstable``; with ``--sweep``, a diverged or unstable grid
 point that was not selected is part of the search and does not count); 2 for
 a usage error, including a rule that breaks the step contract (wrong shape or
 dtype, no ``(x, state)`` tuple), reported once per rule; 130 on Ctrl-C and
 143 on SIGTERM (finished cases kept, the run marked partial, ``--resume``
 completes it).
+
+Why ``unstable`` needs ``--strict`` to fail: it means the rule reached every
+target and then ended the stay-converged horizon above the tightest one.
+That is a property some correct rules have -- Nesterov's accelerated method
+without restart is not monotone, Adam-type rules with a constant step hover
+around the optimum -- and the default run shows it for the built-in
+``nesterov`` and ``nadam``; each such case gets an explanation line.
 """
 
 from __future__ import annotations
@@ -34,15 +42,18 @@ EPILOG = """\
 Writes ./results/runs/<run-id>/ and appends to ./results/history.sqlite (--out DIR elsewhere).
 
 exit codes:
-  0    every case ran cleanly (reached, partial and budget are measurements, not failures)
-  1    some case ended error, timeout, diverged or unstable (with --sweep: only the
-       selected grid points count for diverged/unstable)
+  0    every case ran cleanly (reached, partial, budget and unstable are measurements,
+       not failures; each unstable case is explained below the table)
+  1    some case ended error, timeout or diverged, or unstable with --strict
+       (with --sweep: only the selected grid points count for diverged/unstable)
   2    usage error, including a rule that breaks the step contract (reported once)
   130  interrupted (Ctrl-C); 143 terminated (SIGTERM): finished cases are kept,
        the run is marked partial, --resume RUN_ID completes it"""
 
-#: case statuses that make ``run`` exit 1
-FAILED = ("error", "timeout", "diverged", "unstable")
+#: case statuses that make ``run`` exit 1 ...
+FAILED = ("error", "timeout", "diverged")
+#: ... and with ``--strict``
+STRICT_FAILED = (*FAILED, "unstable")
 #: failures a sweep is expected to produce at its unselected grid points
 _SWEEP_EXPECTED = ("diverged", "unstable")
 
@@ -75,7 +86,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--timeout", type=float, default=120.0, metavar="S",
                    help="wall-clock limit per monitored pass in seconds (default 120)")
     p.add_argument("--no-timing", action="store_true", help="skip the timing replays")
-    p.add_argument("--json", action="store_true", help="print the tidy table as JSON")
+    p.add_argument("--strict", action="store_true",
+                   help="exit 1 also when a case is unstable (reached every target, then ended above the tightest)")
+    p.add_argument("--json", action="store_true", help="print the tidy table as JSON (floats at full precision)")
     p.add_argument("--out", default="results", metavar="DIR", help="results folder, created when missing (default ./results)")
     p.add_argument("--resume", metavar="RUN_ID", help="complete an interrupted run (its settings are reused)")
 
@@ -118,7 +131,7 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"run_id": outcome.run_id, "path": outcome.path, "status": outcome.status,
                           "selected": list(outcome.selected), "skipped": list(outcome.skipped),
-                          "failed": failed_cases(outcome.results, outcome.selected),
+                          "failed": failed_cases(outcome.results, outcome.selected, strict=args.strict),
                           "rows": json_records(outcome.frame)},
                          indent=1, allow_nan=False))
     else:
@@ -131,7 +144,7 @@ def run(args: argparse.Namespace) -> int:
         for line in contract:
             print(f"benchsuite: error: {line}", file=sys.stderr)
         return 2
-    return 1 if failed_cases(outcome.results, outcome.selected) else 0
+    return 1 if failed_cases(outcome.results, outcome.selected, strict=args.strict) else 0
 
 
 def _first_line(error: str | None) -> str:
@@ -171,8 +184,9 @@ def contract_violations(results: Sequence[Any]) -> list[str]:
     return lines
 
 
-def failed_cases(results: Sequence[Any], selected: Sequence[dict[str, Any]] = ()) -> list[dict[str, str]]:
-    """Cases that make ``run`` exit 1: status error, timeout, diverged or unstable.
+def failed_cases(results: Sequence[Any], selected: Sequence[dict[str, Any]] = (), *,
+                 strict: bool = False) -> list[dict[str, str]]:
+    """Cases that make ``run`` exit 1: status error, timeout or diverged (``strict``: or unstable).
 
     In a sweep, a diverged or unstable grid point that was not selected is an
     expected part of the search (a step size too large) and is left out.
@@ -180,7 +194,7 @@ def failed_cases(results: Sequence[Any], selected: Sequence[dict[str, Any]] = ()
     chosen = {s["case"] for s in selected}
     out = []
     for r in results:
-        if r.status not in FAILED:
+        if r.status not in (STRICT_FAILED if strict else FAILED):
             continue
         if chosen and r.status in _SWEEP_EXPECTED and r.case.key() not in chosen:
             continue
