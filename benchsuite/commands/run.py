@@ -88,7 +88,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-timing", action="store_true", help="skip the timing replays")
     p.add_argument("--strict", action="store_true",
                    help="exit 1 also when a case is unstable (reached every target, then ended above the tightest)")
-    p.add_argument("--json", action="store_true", help="print the tidy table as JSON (floats at full precision)")
+    p.add_argument("--json", action="store_true", help="print the tidy table as JSON (floats at full precision; \"failed\" lists the cases behind exit 1)")
     p.add_argument("--out", default="results", metavar="DIR", help="results folder, created when missing (default ./results)")
     p.add_argument("--resume", metavar="RUN_ID", help="complete an interrupted run (its settings are reused)")
 
