@@ -472,3 +472,28 @@ def test_unstable_case_is_explained_and_fails_with_strict(tmp_path: Path, capsys
                           "--strict", "--no-timing", "--jobs", "1", "--json", "--out", str(tmp_path / "out"))
     assert code == 1 and json.loads(out)["failed"] == [
         {"instance": "quad-diag-kappa10-d10", "rule": "kicked_rule:Kicked", "status": "unstable"}]
+
+
+def test_run_cli_takes_per_rule_hyperparameters_horizon_and_notes(tmp_path) -> None:
+    """--rule 'adam(lr=0.05)' gives that rule its own value; --horizon reaches the cases; notes are printed."""
+    import subprocess
+    import sys
+
+    proc = subprocess.run(
+        [sys.executable, "-m", "benchsuite", "run", "--rule", "adam(lr=0.05)", "--rule", "gd",
+         "--problems", "quad-diag-kappa10-d10", "--no-timing", "--jobs", "1", "--horizon", "0,0",
+         "--json", "--out", str(tmp_path / "out")],
+        capture_output=True, text=True, timeout=300,
+    )
+    assert proc.returncode == 0, proc.stderr
+    import json
+
+    doc = json.loads(proc.stdout)
+    rules = {r["rule"] for r in doc["rows"]}
+    assert rules == {"adam(lr=0.05)", "gd"}
+    # --horizon 0,0: the passes stop where the tightest target is met (nothing after it)
+    assert all(r["iterations_run"] == max(q["iterations"] for q in doc["rows"] if q["case"] == r["case"])
+               for r in doc["rows"] if r["case_status"] == "reached")
+    bad = subprocess.run([sys.executable, "-m", "benchsuite", "run", "--horizon", "ten", "--out", str(tmp_path / "o2")],
+                         capture_output=True, text=True, timeout=120)
+    assert bad.returncode == 2 and "--horizon" in bad.stderr and "Traceback" not in bad.stderr

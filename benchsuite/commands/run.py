@@ -60,8 +60,9 @@ _SWEEP_EXPECTED = ("diverged", "unstable")
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rule", action="append", default=[], metavar="R",
-                   help="built-in rule name or package.module:attribute (repeatable; default: every "
-                        "built-in rule except adamw, whose weight decay moves the minimiser)")
+                   help="built-in rule name or package.module:attribute, optionally with its own "
+                        "hyperparameters as printed in the tables: 'adam(lr=0.01, beta2=0.99)' (repeatable; "
+                        "default: every built-in rule except adamw, whose weight decay moves the minimiser)")
     p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
                    help="hyperparameter, applied to every --rule given (repeatable)")
     p.add_argument("--problems", metavar="SELECTOR",
@@ -79,6 +80,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--sweep", metavar="NAME=LO:HI:N",
                    help="log grid of a numeric hyperparameter, e.g. lr=1e-4:1:9; the best value per problem is selected")
     p.add_argument("--params-from", metavar="RUN_ID", help="reuse the sweep selection of an earlier run")
+    p.add_argument("--start", type=int, choices=(1, 2),
+                   help="certified starting point of a NIST StRD file given by path in --problems (default 1)")
+    p.add_argument("--dtype", choices=("float32", "float64"),
+                   help="run every problem in this precision (default: as catalogued, float64 unless stated)")
+    p.add_argument("--horizon", metavar="STEPS,MULT", default=None,
+                   help="after the tightest target, run on max(STEPS, MULT x iterations so far) steps and require "
+                        "the measure to stay below it (default 100,0.5)")
     p.add_argument("--jobs", type=int, metavar="N", help="worker processes for the monitored passes (default: cores)")
     p.add_argument("--threads", type=int, default=1, metavar="N", help="BLAS threads per process (default 1)")
     p.add_argument("--replays", type=int, default=5, metavar="N",
@@ -111,6 +119,7 @@ def run(args: argparse.Namespace) -> int:
             tier=None if args.tier == "all" else args.tier,
             catalogue=args.catalogue, batch=args.batch, replace=args.replace, seeds=args.seeds,
             budget=args.budget, sweep=args.sweep, params_from=args.params_from,
+            horizon=args.horizon, dtype=args.dtype, start=args.start,
         )
     elif args.rule or args.param or args.sweep or args.problems:
         raise UserError("--resume takes the run's own settings; drop --rule/--param/--sweep/--problems")
@@ -131,6 +140,7 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"run_id": outcome.run_id, "path": outcome.path, "status": outcome.status,
                           "selected": list(outcome.selected), "skipped": list(outcome.skipped),
+                          "notes": list(outcome.notes),
                           "failed": failed_cases(outcome.results, outcome.selected, strict=args.strict),
                           "rows": json_records(outcome.frame)},
                          indent=1, allow_nan=False))
@@ -138,6 +148,8 @@ def run(args: argparse.Namespace) -> int:
         print(format_results(outcome.results, outcome.selected))
         if outcome.skipped:
             print(f"\nskipped (not finite sums, --batch needs one): {', '.join(outcome.skipped)}")
+        for note in outcome.notes:
+            print(f"note: {note}")
         if outcome.run_id:
             print(f"\nrun {outcome.run_id}: {outcome.path} (history: {args.out}/history.sqlite)")
     if contract:
