@@ -58,6 +58,7 @@ stale.
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import hashlib
 import json
@@ -806,7 +807,22 @@ def _load(instance: Instance, problem: Problem | None, path: Path, key: str) -> 
         scale = max(abs(opt.f_star), opt.f0 - opt.f_star, np.finfo(float).tiny)
         if not abs(f - opt.f_star) <= EPS_F["exact"] * scale:  # stale: the family's objective changed
             return None
-    return opt
+    return _current_labels(opt, problem)
+
+
+def _current_labels(opt: Optimum, problem: Problem) -> Optimum:
+    """``opt`` with the published source and note as the family words them now.
+
+    The labels are not part of the cache key (they do not change the optimum),
+    so an entry written before a family reworded its citation keeps the old
+    wording; the output names the publication as the code does.
+    """
+    pub = problem.published()
+    old = opt.published
+    if pub is None or old is None or (pub.source, pub.note) == (old.source, old.note):
+        return opt
+    how = opt.how.replace(f"({old.source})", f"({pub.source})") if old.source else opt.how
+    return dataclasses.replace(opt, published=dataclasses.replace(old, source=pub.source, note=pub.note), how=how)
 
 
 def certified_optimum(

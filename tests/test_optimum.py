@@ -294,3 +294,46 @@ def test_every_catalogue_instance_has_a_committed_certified_entry() -> None:
         if not any(d["certified"] for d in docs):
             missing.append(name)
     assert not missing, f"no committed certified optimum for {missing}: run `benchsuite optimum NAME` and commit"
+
+
+# -- what the output says about a published value ---------------------------------------
+PUBLISHED_FAMILIES = ("longley", "mgh", "rosenbrock", "nist_strd")
+
+
+def test_published_sources_name_the_publication_only() -> None:
+    """Where a recalled value came from is a note in the source and tests, never output text."""
+    cat = load_catalogue()
+    seen = set()
+    for inst in cat.values():
+        if inst.family in PUBLISHED_FAMILIES:  # all cheap to build (at most d = 100)
+            pub = inst.build().published()
+            assert pub is not None and "memory" not in pub.source and "memory" not in pub.note, inst.name
+            seen.add(inst.family)
+    assert {"longley", "mgh", "rosenbrock"} <= seen
+    for f in (ROOT / "results" / "reference").glob("*.json"):  # the committed cache is shown as is
+        assert "from memory" not in f.read_text(), f.name
+
+
+def test_a_cache_entry_with_an_old_label_is_shown_with_the_current_one(tmp_path: Path) -> None:
+    inst = load_catalogue()["nist-longley"]
+    src = cache_path(inst, ROOT / "results" / "reference")
+    doc = json.loads(src.read_text())
+    doc["published"]["source"] += " (an older wording)"
+    (tmp_path / src.name).write_text(json.dumps(doc))
+    o = certified_optimum(inst, cache_dir=tmp_path)
+    assert o.from_cache and o.published.source == "NIST StRD Longley certified values"
+
+
+def test_optimum_command_output_names_the_publication() -> None:
+    import subprocess
+    import sys
+
+    proc = subprocess.run(
+        [sys.executable, "-m", "benchsuite", "optimum", "nist-longley,mgh-wood,rosenbrock-2d"],
+        cwd=ROOT, capture_output=True, text=True, timeout=300,
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert "published (NIST StRD Longley certified values): f = " in proc.stdout
+    assert "published (Moré, Garbow & Hillstrom (1981), ACM TOMS 7(1):17-41, function 14): f = 0.0" in proc.stdout
+    assert "published (Rosenbrock (1960), The Computer Journal 3:175-184 (2-D);" in proc.stdout
+    assert "memory" not in proc.stdout

@@ -256,7 +256,7 @@ class MGH(ResidualProblem):
         return Published(
             f=0.0,
             x=self.spec.x_star(self.dim),
-            source=f"{SOURCE}, function {self.spec.number} (from memory)",
+            source=f"{SOURCE}, function {self.spec.number}",  # values recalled from memory: see the module docstring
             note=self.spec.note,
         )
 
