@@ -1,6 +1,7 @@
 """Quorvane's own tests of its optimizer, through the benchsuite pytest plugin.
 
-Run from examples/quorvane: ``pytest test_quorvane_optim.py``.
+``pytest test_quorvane_optim.py`` here, or ``pytest examples/quorvane/test_quorvane_optim.py``
+from the top: the helpers take ``baseline.json`` and ``problems.toml`` relative to this file.
 """
 
 from benchsuite.pytest_plugin import assert_converges, assert_meets_baseline
