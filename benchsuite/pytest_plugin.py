@@ -106,10 +106,10 @@ def assert_converges(
     try:
         spec = parse_rule(rule, dict(params or {}))
         cat = load_catalogue([_resolve(c, base) for c in catalogue] or None)
-        instances = select(cat, problems, tier, validate=True, option=f"assert_converges(problems={problems!r})",
-                           tier_option=f"assert_converges(tier={tier!r})")
+        # errors name the arguments the test gave ("problems: unknown instance ..."), not --problems
+        instances = select(cat, problems, tier, validate=True, option="problems", tier_option="tier")
         if not instances:
-            raise UserError(f"assert_converges(problems={problems!r}, tier={tier!r}): chose no problem")
+            raise UserError(f"problems={problems!r}, tier={tier!r}: chose no problem")
         first = instances[0].build()
         build_rule(spec, first.constants(), dtype=first.dtype)  # hyperparameter names, kinds, the factory
         oracle = "full" if batch is None else "minibatch"
