@@ -174,6 +174,8 @@ class SeedOutcome:
     horizon: int = 0
     left_at: int | None = None
     horizon_worst: float | None = None
+    #: the machine the timing replay ran on (host name; empty until timed)
+    timed_on: str = ""
     trace: Trace | None = field(default=None, compare=False, repr=False)
 
     @property
@@ -289,6 +291,7 @@ def result_from_dict(case: Case, d: Mapping[str, Any], traces: Mapping[int, Trac
             horizon=int(o.get("horizon") or 0),
             left_at=o.get("left_at"),
             horizon_worst=None if o.get("horizon_worst") is None else float(dec_float(o["horizon_worst"])),
+            timed_on=str(o.get("timed_on") or ""),
             trace=traces.get(seed),
         ))
     hp = {k: tuple(v) if isinstance(v, list) else v for k, v in d["hyperparams"].items()}
