@@ -289,7 +289,9 @@ def iterations_for(bound: Bound, target: float, limit: int = 10**8) -> int | Non
     ``target < 1``: doubling brackets the first ``k`` below the target and a
     bisection finds it.
     """
-    if not target > 0:
+    if not 0 < target < 1:
+        # every measure is 1 at x_0: a target >= 1 is met before any step, and a
+        # bound saying "0 iterations" would call every first crossing a violation
         return None
     lt = math.log(target)
     if bound.log_bound(0) <= lt:
@@ -476,6 +478,6 @@ def lower_bound_iterations(
     curve = krylov_optimal_measures(lam, w, measure, kmax)
     out: list[int | None] = []
     for t in targets:
-        hit = [k for k in range(curve.size) if curve[k] <= t * (1.0 + _LOWER_SLACK)]
+        hit = [k for k in range(curve.size) if 0 < t < 1 and curve[k] <= t * (1.0 + _LOWER_SLACK)]
         out.append(hit[0] if hit else None)
     return tuple(out)

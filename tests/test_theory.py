@@ -313,3 +313,12 @@ def test_a_wrong_measurement_shows_below_the_lower_bound() -> None:
                          targets=(1e-8,), budget=10_000)
     (lower,) = lower_bound_iterations("nesterov_sc", built.problem, (1e-8,))
     assert out.iters[0] is not None and lower is not None and out.iters[0] < lower, (out.iters, lower)
+
+
+def test_targets_at_or_above_one_get_no_bound() -> None:
+    # a measure is 1 at x_0: a bound of "0 iterations" for t >= 1 would flag every crossing
+    c, gd, _ = _kappa10()
+    b = applicable_bound("gd", gd, c, family="quadratic", oracle="full", measure="subopt")
+    assert theory_iterations(b, [1.0, 2.0, 0.5]) == (None, None, 4)  # 0.9^6 = 0.53 > 0.5 >= 0.9^8 = 0.43
+    quad = _built(load_catalogue()["quad-diag-kappa10-d10"]).problem
+    assert lower_bound_iterations("gd", quad, (1.0, 5.0)) == (None, None)
