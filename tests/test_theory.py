@@ -263,7 +263,7 @@ def test_krylov_optimum_beats_gradient_descent_at_every_step(measure: str) -> No
 
 
 QUAD_SMALL = ["quad-diag-kappa10-d10", "quad-diag-kappa100-d50", "quad-rot-kappa1e3-d100", "lsq-kappa1e2-500x50",
-              "ridge-rho0.7-500x50"]
+              "ridge-rho0.7-500x50", "quad-diag-tiny-kappa10-d20", "quad-diag-kappa3e3-d30", "lsq-kappa3e3-400x40"]
 
 
 def test_builtin_counts_lie_between_lower_and_upper_bounds() -> None:
@@ -282,7 +282,9 @@ def test_builtin_counts_lie_between_lower_and_upper_bounds() -> None:
             if case.rule.name != "nesterov":  # no published linear rate for the convex schedule
                 assert ub is not None and m <= ub, (case.key(), j, m, ub)
         # the lower bound is not vacuous: the accelerated methods come within a factor 4 of it
-        if case.rule.name in ("nesterov_sc", "heavy_ball"):
+        # where the dimension is not far below sqrt(kappa) ln(1/t) (on quad-diag-kappa3e3-d30,
+        # d = 30, CG's finite termination puts the bound at 29 and accelerated methods need ~370)
+        if case.rule.name in ("nesterov_sc", "heavy_ball") and case.instance.name in QUAD_SMALL[:5]:
             assert got[-1] <= 4 * lower[-1], (case.key(), got, lower)
 
 
