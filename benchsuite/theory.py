@@ -185,15 +185,25 @@ def applicable_bound(
     family: str,
     oracle: str,
     measure: str,
+    dtype: Any = None,
 ) -> Bound | None:
     """The published bound for this setting, or ``None`` when a condition fails.
 
     ``rule`` is the built-in rule name (an import path never matches),
     ``constants`` a :class:`benchsuite.problem.Constants`, ``family`` the
-    problem's short family name, ``oracle`` ``"full"`` or ``"minibatch"``.
+    problem's short family name, ``oracle`` ``"full"`` or ``"minibatch"``,
+    ``dtype`` the problem's working precision (``None``: float64). The rates
+    hold in exact arithmetic; a float32 iterate carries ~6e-8 relative
+    round-off per operation, the same order as the tight targets of a float32
+    case (a relative distance of 1e-6 is ~20 ulps), so no bound is given there.
     """
     if oracle != "full" or constants is None:
         return None
+    if dtype is not None:
+        import numpy as np
+
+        if np.dtype(dtype) != np.float64:
+            return None
     L, mu = constants.L, constants.mu
     if L is None or mu is None or constants.L_kind not in ("exact", "bound") or constants.mu_kind not in ("exact", "bound"):
         return None

@@ -324,3 +324,13 @@ def test_targets_at_or_above_one_get_no_bound() -> None:
     assert theory_iterations(b, [1.0, 2.0, 0.5]) == (None, None, 4)  # 0.9^6 = 0.53 > 0.5 >= 0.9^8 = 0.43
     quad = _built(load_catalogue()["quad-diag-kappa10-d10"]).problem
     assert lower_bound_iterations("gd", quad, (1.0, 5.0)) == (None, None)
+
+
+def test_no_upper_bound_for_a_float32_iterate() -> None:
+    # round-off of float32 (~6e-8 per operation) is the size of its tight targets: no exact-arithmetic rate
+    c, gd, _ = _kappa10()
+    kw = dict(family="quadratic", oracle="full", measure="dist")
+    assert applicable_bound("gd", gd, c, dtype="float64", **kw) is not None
+    assert applicable_bound("gd", gd, c, dtype=np.float64, **kw) is not None
+    assert applicable_bound("gd", gd, c, dtype="float32", **kw) is None
+    assert applicable_bound("gd", gd, c, dtype=np.dtype(np.float32), **kw) is None
