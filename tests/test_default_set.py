@@ -19,7 +19,8 @@ import pytest
 
 from benchsuite.catalogue import load_catalogue, select
 from benchsuite.rulespec import parse_rule
-from benchsuite.runner import Case, _built, run_cases
+from benchsuite.monitor import built as _built
+from benchsuite.runner import Case, run_cases
 
 DEFAULT = {i.name: i for i in select(load_catalogue(), None, "small")}
 

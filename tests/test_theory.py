@@ -15,7 +15,8 @@ from benchsuite.problem import Constants
 from benchsuite.catalogue import load_catalogue
 from benchsuite.rules import GD, NesterovSC
 from benchsuite.rulespec import parse_rule
-from benchsuite.runner import Case, _built, monitored_pass, run_cases
+from benchsuite.monitor import built as _built
+from benchsuite.runner import Case, monitored_pass, run_cases
 from benchsuite.theory import (
     applicable_bound,
     iterations_for,
