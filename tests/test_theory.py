@@ -301,6 +301,8 @@ def test_lower_bound_applies_only_where_it_holds() -> None:
     assert lower_bound_iterations("gd", logreg, t) == (None, None)  # not a quadratic
     f32 = cat["quad-diag-kappa10-d10"].build(dtype="float32")
     assert lower_bound_iterations("gd", f32, t) == (None, None)
+    # Longley (kappa ~ 2e19): a dense eigh cannot resolve the small eigenvalues, so no bound
+    assert lower_bound_iterations("gd", cat["nist-longley"].build(), t) == (None, None)
 
 
 def test_a_wrong_measurement_shows_below_the_lower_bound() -> None:
