@@ -318,3 +318,13 @@ def test_request_horizon_dtype_and_start_are_validated_and_reach_the_cases(tmp_p
     dat = Path(__file__).parents[1] / "benchsuite" / "data" / "strd" / "Misra1a.dat"
     (case,) = plan_cases(RunRequest.make(rules="gd", problems=str(dat), start=2), None).cases
     assert case.instance.name == "Misra1a-start2" and dict(case.instance.params)["start"] == 2
+
+
+def test_progress_reaches_the_total_when_cases_fail(quad, capsys) -> None:
+    spec = lambda name: parse_rule(f"faulty_rules:{name}")  # noqa: E731
+    cases = [Case(quad, spec("Raiser")), Case(quad, spec("NaNer")), Case(quad, parse_rule("gd"))]
+    run_cases(cases, jobs=1, timing=True, repeats=2, progress=None)
+    lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("benchsuite: [")]
+    # 3 cases run + 3 counted for timing (the failed ones need no replay but are still counted)
+    assert lines[-1].startswith("benchsuite: [6/6]"), lines
+    assert [int(ln.split("[")[1].split("/")[0]) for ln in lines] == list(range(1, 7))
