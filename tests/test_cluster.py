@@ -83,6 +83,11 @@ def test_cluster_run_equals_local_run_and_timing_records_the_machine(address: st
     timed = [o for r in remote for o in r.outcomes if o.time_per_step is not None]
     assert timed, "no case was timed"
     assert {o.timed_on for o in timed} == {platform.node()}  # the workers run on this machine
+    # both workers are on this host: their replays took turns (intervals from one clock, disjoint)
+    with distributed.Client(address, set_as_default=False) as spy:
+        spans = sorted((e["start"], e["end"]) for _, e in spy.get_events(cluster_mod.TIMED))
+    assert len(spans) >= len(remote)
+    assert all(end <= nxt for (_, end), (nxt, _) in zip(spans, spans[1:]))
 
 
 def _slow_tasks(delay: float, n: int = 4) -> list[PassTask]:

@@ -77,6 +77,8 @@ CONNECT_TIMEOUT = float(os.environ.get("BENCHSUITE_CLUSTER_TIMEOUT", "10"))
 KILL_GRACE = 5.0
 #: the topic of the "task started" events workers log
 _STARTED = "benchsuite-started"
+#: the topic of the events a worker logs for each case it timed: host, case key, start and end (epoch s)
+TIMED = "benchsuite-timed"
 #: how often the client looks at deadlines while waiting for results, seconds
 _POLL = 0.05
 
@@ -261,9 +263,14 @@ def _time_on_worker(result: Any, repeats: int, threads: int, files: tuple[tuple[
     from benchsuite.timing import needs_replay, timed_outcome
 
     _check_files(files, result.case.instance.name)
-    with distributed.Lock(f"benchsuite-replay:{platform.node()}"), threadpool_limits(limits=threads):
+    host = platform.node()
+    with distributed.Lock(f"benchsuite-replay:{host}"), threadpool_limits(limits=threads):
+        start = time.time()
         outs = tuple(timed_outcome(result.case, result.hyperparams, o, repeats) if needs_replay(o) else o
                      for o in result.outcomes)
+        # when each machine timed what (the scheduler keeps it: client.get_events(TIMED))
+        distributed.get_worker().log_event(TIMED, {"host": host, "case": result.case.key(),
+                                                   "start": start, "end": time.time()})
     return replace(result, outcomes=outs)
 
 
