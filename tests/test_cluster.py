@@ -179,7 +179,7 @@ def test_a_data_file_that_differs_on_a_worker_is_one_line(address: str) -> None:
 
 def test_check_files_names_a_missing_path(tmp_path: Path) -> None:
     missing = str(tmp_path / "gone.dat")
-    with pytest.raises(cluster_mod.DataFileError, match="gone.dat.*same absolute path"):
+    with pytest.raises(cluster_mod.DataFileError, match="gone.dat.*same path"):
         cluster_mod._check_files([(missing, "0" * 64)], "my-instance")
 
 

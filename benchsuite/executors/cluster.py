@@ -17,8 +17,9 @@ caches the last few built instances per worker process, and tasks are started
 instance by instance, so the cases of one instance on one worker build it once.
 
 **Data files.** An instance whose parameters name files (a NIST StRD file, a
-user's data file) reads them *on the worker, at the same absolute path*: a
-shared file system, or a copy at the same place. The client sends each file's
+user's data file) reads them *on the worker, at the same path* (a relative
+path from the worker's current folder): a shared file system, or a copy at the
+same place. The client sends each file's
 sha256 with the task; before the first pass that needs the file, a worker
 checks that the path exists and that its bytes have that digest (once per
 worker process and file). A missing or different file stops the run with one
@@ -200,7 +201,7 @@ def _check_files(files: Sequence[tuple[str, str]], instance: str) -> None:
             got = _sha256(path)
         except OSError as exc:
             raise DataFileError(f"{where}, which is not readable there ({exc.strerror or exc}); every worker "
-                                "needs the data files at the same absolute path (shared file system or a copy)") from None
+                                "needs the data files at the same path (shared file system or a copy)") from None
         if got != digest:
             raise DataFileError(f"{where}, whose bytes differ from the client's copy (sha256 {got[:12]} "
                                 f"there, {digest[:12]} here)")
@@ -276,11 +277,15 @@ def _time_on_worker(result: Any, repeats: int, threads: int, files: tuple[tuple[
 
 # -- on the client ----------------------------------------------------------------------
 def _instance_files(instance: Any) -> tuple[tuple[str, str], ...]:
-    """(absolute path, sha256) of each string parameter naming a file here (as ``Problem.data_digest``)."""
+    """(path as given, sha256) of each string parameter naming a file here (as ``Problem.data_digest``).
+
+    The path is kept as the instance gives it, since that is what the family
+    opens on the worker (a relative path from the worker's current folder).
+    """
     out = []
     for _, value in instance.params:
         if isinstance(value, str) and len(value) < 4096 and os.path.isfile(value):
-            out.append((os.path.abspath(value), _sha256(value)))
+            out.append((value, _sha256(value)))
     return tuple(out)
 
 
