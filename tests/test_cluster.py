@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import os
 import platform
+import shutil
 import subprocess
 import sys
 import threading
@@ -175,6 +176,24 @@ def test_a_data_file_that_differs_on_a_worker_is_one_line(address: str) -> None:
         ex.close()
     msg = str(err.value)
     assert "\n" not in msg and path in msg and "nist-boxbod" in msg and "differ" in msg
+
+
+def test_a_data_file_missing_on_the_workers_is_one_line(address: str, tmp_path: Path,
+                                                      monkeypatch: pytest.MonkeyPatch) -> None:
+    from benchsuite.catalogue import Instance
+
+    shutil.copy(REPO / "benchsuite" / "data" / "strd" / "BoxBOD.dat", tmp_path / "my-boxbod.dat")
+    monkeypatch.chdir(tmp_path)  # the relative path resolves here, not in the workers' folder
+    inst = Instance(name="my-boxbod", family="nist_strd", params=(("file", "my-boxbod.dat"), ("start", 1)),
+                    tier="small", targets=(1e-2,), budget=50)
+    ex = ClusterExecutor(address)
+    try:
+        with pytest.raises(UserError) as err:
+            ex.run([PassTask(Case(inst, parse_rule("gd")), 0, 60.0)], lambda i, rep: None)
+    finally:
+        ex.close()
+    msg = str(err.value)
+    assert "\n" not in msg and "my-boxbod.dat" in msg and "not readable" in msg and "same path" in msg
 
 
 def test_check_files_names_a_missing_path(tmp_path: Path) -> None:
