@@ -27,6 +27,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 distributed = pytest.importorskip("distributed")  # the `cluster` extra; CI installs it with `test`
 
@@ -248,3 +250,20 @@ def test_tasks_start_instance_by_instance_largest_budget_first() -> None:
     assert sorted(order) == list(range(len(tasks)))
     # beale (largest budget 100) first, its tasks together, largest first; then lsq; float32 beale is its own group
     assert order == [2, 0, 1, 3, 4]
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.tuples(st.integers(0, 3), st.integers(1, 500), st.booleans()), min_size=1, max_size=25))
+def test_task_order_is_a_permutation_with_each_instance_in_one_stretch(spec: list[tuple[int, int, bool]]) -> None:
+    cat = load_catalogue()
+    insts = [cat[n] for n in ("mgh-beale", "lsq-kappa1e2-500x50", "rosenbrock-2d", "ridge-rho0.7-500x50")]
+    tasks = [PassTask(Case(insts[i], parse_rule("gd"), budget=b, dtype="float32" if f32 else None), 0)
+             for i, b, f32 in spec]
+    order = cluster_mod._order(tasks)
+    assert sorted(order) == list(range(len(tasks)))
+    groups = [(tasks[t].case.instance.name, tasks[t].case.dtype) for t in order]
+    stretches = [g for k, g in enumerate(groups) if k == 0 or g != groups[k - 1]]
+    assert len(stretches) == len(set(groups))  # no group comes back after another started
+    budgets = [tasks[t].case.run_budget for t in order]
+    firsts = [budgets[k] for k in range(len(order)) if k == 0 or groups[k] != groups[k - 1]]
+    assert firsts == sorted(firsts, reverse=True)  # each stretch opens with its largest budget, largest first
