@@ -26,6 +26,8 @@ BUILTIN: dict[str, str] = {
     "mgh": "benchsuite.families.mgh:MGH",
     "nist_strd": "benchsuite.families.nist:NistStrd",
     "longley": "benchsuite.families.longley:Longley",
+    "logistic_sparse": "benchsuite.families.sparse:SparseLogistic",
+    "ridge_sparse": "benchsuite.families.sparse:SparseRidge",
 }
 
 
