@@ -1024,21 +1024,23 @@ def _compute_large_pinned(instance: Instance, problem: Problem) -> Optimum:
         routes.append(cf)
     primal, x = _route_large_primal(problem, x0)
     routes.append(primal)
-    gap = None
+    gap, notes, dual = None, [], None
     if x is not None and primal.ok:
         s_f = max(abs(primal.f), f0 - primal.f, np.finfo(float).tiny)
         dual = _route_dual(problem, x, s_f)
         if dual is not None:
             routes.append(dual)
             gap = dual.duality_gap
-    if len([r for r in routes if r.ok]) < 2:  # no dual for these parameters: an independent code
+            if not dual.ok:  # a certificate that fails is a finding, not replaced by another route
+                notes.append(f"the duality-gap certificate failed: {dual.status}")
+    if dual is None and len([r for r in routes if r.ok]) < 2:  # no dual for these parameters
         routes.append(_route_second_smooth(problem, x0))
     how = (f"convex: unique minimum; large-scale route ({_data_entries(problem)} stored entries >= "
            f"{LARGE_ROUTE_MIN_ENTRIES}: cvxpy not run)")
     if gap is not None:
         how += (f"; duality gap P(x*) - D(alpha) = {gap:.2e}, so f(x*) - f* <= {max(gap, 0.0):.2e} "
                 "(up to the round-off of f itself)")
-    opt = _certify(instance, problem, routes, x0, f0, constants, kappa, None, how, [])
+    opt = _certify(instance, problem, routes, x0, f0, constants, kappa, None, how, notes)
     seconds = {r.method: r.seconds for r in routes}
     facts = {**opt.facts, "duality_gap": gap, "route_seconds": seconds, "data_entries": _data_entries(problem)}
     return dataclasses.replace(opt, facts=facts)

@@ -299,6 +299,11 @@ class SparseRidge(LinearModel):
         """``v -> H v`` (the Hessian is constant)."""
         return lambda v: self.hessp(x, v)
 
+    def cvxpy_objective(self, x: Any) -> Any:
+        import cvxpy as cp
+
+        return cp.sum_squares(self.A64 @ x - self.b64) / (2 * self.n_samples) + 0.5 * self.lam * cp.sum_squares(x)
+
     def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray]:
         """``(P(x), D(alpha), w(alpha))`` at the dual point ``alpha = b - A x`` (see :func:`ridge_dual`)."""
         return ridge_dual(self.A64, self.b64, self.lam, np.asarray(x, dtype=np.float64))
