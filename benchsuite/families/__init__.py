@@ -28,6 +28,10 @@ BUILTIN: dict[str, str] = {
     "longley": "benchsuite.families.longley:Longley",
     "logistic_sparse": "benchsuite.families.sparse:SparseLogistic",
     "ridge_sparse": "benchsuite.families.sparse:SparseRidge",
+    "logistic_data": "benchsuite.families.data:LogisticData",
+    "softmax_data": "benchsuite.families.data:SoftmaxData",
+    "least_squares_data": "benchsuite.families.data:LeastSquaresData",
+    "ridge_data": "benchsuite.families.data:RidgeData",
 }
 
 

@@ -419,20 +419,35 @@ class Softmax(_Features):
         P = _softmax_rows(Z)
         # inverse-CDF draw of one class per row from P
         u = rng.random((n, 1))
-        self.labels = np.minimum((np.cumsum(P, axis=1) < u).sum(axis=1), self.K - 1)
+        labels = np.minimum((np.cumsum(P, axis=1) < u).sum(axis=1), self.K - 1)
+        self.scale_range = float(scale_range)
+        self.signal = float(signal)
+        self._setup(A, labels, self.K, self.lam, dtype)
+
+    def _setup(self, A: Any, labels: np.ndarray, K: int, lam: float, dtype: str) -> None:
+        """Store features ``A`` (dense or CSR), class labels in ``0..K-1`` and scratch buffers.
+
+        Subclasses that read their data (a user's file) call this instead of ``Softmax.__init__``.
+        """
+        n, d = A.shape
+        self.d, self.K, self.dim, self.lam = int(d), int(K), int(d) * int(K), float(lam)
+        self.labels = np.asarray(labels, dtype=np.int64)
         self._store(A, dtype)
         self.Y64 = np.zeros((n, self.K))
         self.Y64[np.arange(n), self.labels] = 1.0
         self.Y = self.Y64.astype(self.dtype)
-        self.scale_range = float(scale_range)
-        self.signal = float(signal)
         self._S = np.empty((n, self.K), dtype=self.dtype)
         self._t = np.empty(self.dim, dtype=self.dtype)
 
     # -- oracle -------------------------------------------------------------
-    def _scores(self, x: np.ndarray, A: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+    def _scores(self, x: np.ndarray, A: Any, out: np.ndarray | None) -> np.ndarray:
         W = x.reshape(self.d, self.K)
-        return A @ W if out is None else np.matmul(A, W, out=out)
+        if out is None:
+            return np.asarray(A @ W)
+        if self.sparse:
+            out[...] = A @ W
+            return out
+        return np.matmul(A, W, out=out)
 
     def _loss(self, S: np.ndarray, Y: np.ndarray) -> float:
         """Mean of ``logsumexp(s_i) - s_{i, y_i}``; leaves ``S`` shifted by its row maxima."""
@@ -447,7 +462,10 @@ class Softmax(_Features):
         S -= Y
         if out is None:
             out = np.empty(self.dim, dtype=self.dtype)
-        np.matmul(A.T, S, out=out.reshape(self.d, self.K))
+        if self.sparse:
+            out.reshape(self.d, self.K)[...] = A.T @ S
+        else:
+            np.matmul(A.T, S, out=out.reshape(self.d, self.K))
         out *= 1.0 / A.shape[0]
         out += np.multiply(x, self.lam, out=self._t)
         return out
