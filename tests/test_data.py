@@ -194,3 +194,14 @@ def test_instance_build_keeps_the_location_for_bad_params(tmp_path: Path) -> Non
                     tier="small", targets=(1e-2,), budget=10, source="f.toml")
     with pytest.raises(UserError, match=r"f.toml: \[x\].params: lam must be > 0"):
         inst.build()
+
+
+def test_missing_scikit_learn_is_one_line(monkeypatch: pytest.MonkeyPatch) -> None:
+    import importlib.util
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None if name == "sklearn" else real(name, *a))
+    inst = load_catalogue()["data-diabetes-ridge"]
+    with pytest.raises(UserError, match=r"data.toml: \[data-diabetes-ridge\].params: dataset 'sklearn:diabetes' "
+                                        r"needs scikit-learn, which is not installed \(pip install scikit-learn\)"):
+        inst.build()
