@@ -78,13 +78,30 @@ class DataSet:
         return f"{self.source}: {self.unit} {int(self.rows[i])}"
 
 
+#: (resolved path, size, mtime_ns) -> digest: a run hashes an instance many times, a big file once.
+#: Only files of at least _MEMO_BYTES are kept: mtime can stay put across two quick edits of a
+#: small file (coarse filesystem clocks), and small files are cheap to hash again
+_DIGESTS: dict[tuple[str, int, int], str] = {}
+_MEMO_BYTES = 16 << 20
+
+
 def file_digest(path: str | Path) -> str:
-    """sha256 of the file's bytes, read in 1 MiB blocks."""
+    """sha256 of the file's bytes, read in 1 MiB blocks (kept per process while size and mtime stay)."""
+    import os
+
+    st = os.stat(path)
+    key = (os.path.realpath(path), st.st_size, st.st_mtime_ns)
+    hit = _DIGESTS.get(key)
+    if hit is not None:
+        return hit
     h = hashlib.sha256()
     with open(path, "rb") as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)
-    return h.hexdigest()
+    digest = h.hexdigest()
+    if st.st_size >= _MEMO_BYTES:
+        _DIGESTS[key] = digest
+    return digest
 
 
 def detect_format(path: str | Path, fmt: str = "auto") -> str:
