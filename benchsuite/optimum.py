@@ -1042,5 +1042,7 @@ def _compute_large_pinned(instance: Instance, problem: Problem) -> Optimum:
                 "(up to the round-off of f itself)")
     opt = _certify(instance, problem, routes, x0, f0, constants, kappa, None, how, notes)
     seconds = {r.method: r.seconds for r in routes}
-    facts = {**opt.facts, "duality_gap": gap, "route_seconds": seconds, "data_entries": _data_entries(problem)}
+    finite_gap = gap if gap is not None and math.isfinite(gap) else None  # the JSON stays strict
+    facts = {**opt.facts, "duality_gap": finite_gap, "route_seconds": seconds,
+             "data_entries": _data_entries(problem)}
     return dataclasses.replace(opt, facts=facts)
