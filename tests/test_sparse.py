@@ -231,3 +231,15 @@ def test_float32(kind):
 def test_impossible_params_raise(cls, params):
     with pytest.raises(ValueError):
         cls(**{"n": 50, "d": 40, **params})
+
+
+@pytest.mark.parametrize("kind", SMALL)
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1), scale=st.floats(1e-3, 30.0))
+def test_weak_duality_holds_at_every_point(kind, seed, scale):
+    """alpha(x) is dual feasible for every x, so P(x) - D(alpha(x)) >= 0 (a law, not a property of x*)."""
+    p = SMALL[kind](seed % 50)
+    x = scale * np.random.default_rng(seed).standard_normal(p.dim)
+    P, D, _ = p.duality_gap(x)
+    # round-off of two sums of ~100 terms of size up to ~scale^2: 1e-13 relative to |P| + |D|
+    assert P - D >= -1e-13 * (abs(P) + abs(D) + 1.0)
