@@ -153,11 +153,17 @@ class Instance:
 
         float64 builds exactly as :meth:`build` (no ``dtype`` keyword passed, so
         families without one keep working); float32 passes ``dtype="float32"``.
+        An override also replaces a ``dtype`` given in ``params`` (the older way to
+        ask for float32, which makes the optimum be certified on the float32 build:
+        prefer the instance's ``dtype`` field).
         """
-        chosen = dtype or self.dtype
-        if chosen not in DTYPES:
-            raise UserError(f"--dtype: unknown dtype {chosen!r} (one of {', '.join(DTYPES)})")
-        return self.build(None if chosen == "float64" else chosen)
+        if dtype is None:  # as catalogued (a dtype in params, the older way, is kept as well)
+            return self.build(None if self.dtype == "float64" else self.dtype)
+        if dtype not in DTYPES:
+            raise UserError(f"--dtype: unknown dtype {dtype!r} (one of {', '.join(DTYPES)})")
+        if dtype == "float64" and "dtype" not in self.params_dict():
+            return self.build()
+        return self.build(dtype)
 
     def _identity(self) -> dict[str, Any]:
         """Family, params and -- for families that read files -- a digest of the data."""
@@ -318,9 +324,6 @@ def _parse_entry(src: str, index: int, entry: Any, origin: str = "") -> Instance
     dtype = want("dtype", (str,), "a string") if "dtype" in entry else "float64"
     if dtype not in DTYPES:
         raise UserError(f"{label}.dtype: unknown dtype {dtype!r} (one of {', '.join(DTYPES)})")
-    if "dtype" in params:
-        raise UserError(f"{label}.params.dtype: set the precision as the instance's own field (dtype = "
-                        f"{params['dtype']!r}), not a parameter: the optimum is certified in float64")
 
     inst = Instance(
         name=name,

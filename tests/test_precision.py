@@ -134,13 +134,20 @@ def test_instance_dtype_field(tmp_path: Path) -> None:
 @pytest.mark.parametrize("extra, params, words", [
     ('dtype = "float16"', "", r"\[q32\].dtype: unknown dtype 'float16'"),
     ("dtype = 32", "", r"\[q32\].dtype: expected a string"),
-    ("", 'dtype = "float32"', r"\[q32\].params.dtype: set the precision as the instance's own field"),
 ])
 def test_bad_dtype_is_one_line(tmp_path: Path, extra: str, params: str, words: str) -> None:
     f = tmp_path / "c.toml"
     f.write_text(ENTRY.format(extra=extra, params=params))
     with pytest.raises(UserError, match=words):
         load_catalogue([f])
+
+
+def test_dtype_in_params_still_works_and_an_override_replaces_it(tmp_path: Path) -> None:
+    f = tmp_path / "c.toml"
+    f.write_text(ENTRY.format(extra="", params='dtype = "float32"'))
+    inst = load_catalogue([f])["q32"]
+    assert inst.build_for_run().dtype == np.float32
+    assert inst.build_for_run("float64").dtype == np.float64
 
 
 def test_float64_definition_hashes_unchanged_by_the_dtype_field() -> None:
