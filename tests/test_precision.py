@@ -166,3 +166,13 @@ def test_every_small_instance_builds_in_float32(inst: Instance) -> None:
     # float32 round-off relative to the gradient's scale; 1e-3 allows sums over ~1e3 terms and
     # ill-conditioned families (relative to max |g|, not per coordinate)
     assert np.max(np.abs(g32 - g64)) <= 1e-3 * max(1.0, np.max(np.abs(g64)))
+
+
+def test_catalogued_float32_instances(warm_cache: Path) -> None:
+    cat = load_catalogue()
+    inst = cat["data-breast-cancer-logreg-float32"]
+    assert inst.dtype == "float32" and inst.build_for_run().dtype == np.float32
+    # one objective, one certified optimum: the float64 instance's
+    assert inst.problem_hash() == cat["data-breast-cancer-logreg"].problem_hash()
+    res, flags = unreachable_targets(inst, inst.dtype, cache_dir=warm_cache)
+    assert flags == (False, False, False, True), res  # 1e-8 is below the float32 value floor (~1e-7)
