@@ -148,6 +148,32 @@ def test_a_worker_killed_mid_pass_loses_nothing(address: str) -> None:
         _same(rep.outcome, local.outcome)
 
 
+def test_a_task_the_scheduler_drops_stops_the_run_with_one_line(address: str) -> None:
+    tasks = _slow_tasks(delay=0.05)
+    ex = ClusterExecutor(address)
+    spy = distributed.Client(address, set_as_default=False)
+
+    def cancel_one() -> None:  # another client cancels one of our tasks by its key
+        for _ in range(400):
+            keys = [k for keys in spy.processing().values() for k in keys if "benchsuite-pass" in str(k)]
+            if keys:
+                spy.cancel([distributed.Future(keys[0], client=spy)], force=True)
+                return
+            time.sleep(0.05)
+
+    canceller = threading.Thread(target=cancel_one)
+    try:
+        canceller.start()
+        with pytest.raises(UserError) as err:
+            ex.run(tasks, lambda i, rep: None)
+        canceller.join()
+    finally:
+        ex.close()
+        spy.close()
+    msg = str(err.value)
+    assert "\n" not in msg and "dropped a task" in msg and "--resume" in msg
+
+
 def test_a_step_that_never_returns_is_cancelled_as_timeout(address: str, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setattr(cluster_mod, "KILL_GRACE", 1.0)
     inst = load_catalogue()["mgh-beale"]

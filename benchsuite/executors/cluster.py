@@ -48,7 +48,10 @@ copy under another path on the worker would be another problem.
   worker are rerun elsewhere.
 * A bad address, a scheduler without workers, workers that cannot import
   benchsuite or the run's rule modules: one line (``UserError``, exit 2)
-  before any pass runs.
+  before any pass runs. A task the scheduler drops (it restarted, the
+  connection was lost, another client cancelled it) stops the run with one
+  line: it is no result of the rule, so it is not stored as one, and
+  ``--resume`` runs it again.
 
 **Timing replays** (:meth:`ClusterExecutor.time_cases`) run after all passes,
 as tasks on the workers with BLAS pinned to ``threads``, serialised per
@@ -103,12 +106,15 @@ def connect(address: str) -> Any:
     import logging
 
     # a failed connect logs its own traceback-like lines; the UserError below says it in one
-    logging.getLogger("distributed").setLevel(logging.CRITICAL)
+    log = logging.getLogger("distributed")
+    level = log.level
+    log.setLevel(logging.CRITICAL)
     from distributed.comm import get_address_host_port
 
     try:
         get_address_host_port(address)
     except Exception as exc:  # missing port, unknown scheme ...
+        log.setLevel(level)
         raise UserError(f"--cluster {address}: not a scheduler address ({_first_line(exc)}; "
                         "expected e.g. tcp://host:8786)") from None
     try:
@@ -116,7 +122,8 @@ def connect(address: str) -> Any:
     except Exception as exc:  # OSError, TimeoutError, ValueError for a malformed address ...
         raise UserError(f"--cluster {address}: no Dask scheduler answered within {CONNECT_TIMEOUT:g} s "
                         f"({_first_line(exc)})") from None
-    logging.getLogger("distributed").setLevel(logging.WARNING)
+    finally:
+        log.setLevel(level)
     try:
         client.wait_for_workers(1, timeout=CONNECT_TIMEOUT)
     except Exception:
@@ -391,9 +398,14 @@ class ClusterExecutor:
                 return fut.result()
             except Exception as exc:  # the result did not arrive (unpicklable, lost with the worker ...)
                 return failed(tid, "error", f"result lost: {_first_line(exc)}")
-        if fut.status == "cancelled":
-            return failed(tid, "error", "the scheduler cancelled the task (scheduler restarted or lost?)")
-        exc = fut.exception()
+        try:
+            exc = fut.exception() if fut.status == "error" else None
+        except Exception:  # the exception itself did not arrive
+            exc = None
+        if exc is None:  # cancelled or lost on the scheduler's side: not the rule's doing, so no result
+            raise UserError(f"--cluster {self.address}: the scheduler dropped a task ({fut.status}; restarted, "
+                            "connection lost or cancelled by another client); finished cases are kept, "
+                            "complete the run with --resume")
         if isinstance(exc, DataFileError):
             raise UserError(str(exc))
         from distributed import KilledWorker
