@@ -590,6 +590,13 @@ def execute(
         done = [finished[c.key()] for c in plan.cases if c.key() in finished]
         close("partial", done, [])
         raise RunInterrupted(rd.run_id if rd else None) from None
+    except UserError as exc:  # stopped mid-run (e.g. a cluster lost a task): keep what finished, say how to go on
+        done = [finished[c.key()] for c in plan.cases if c.key() in finished]
+        close("partial", done, [])
+        if rd is None:
+            raise
+        raise UserError(f"{exc} (finished cases kept; run {rd.run_id} marked partial: "
+                        f"benchsuite run --resume {rd.run_id})") from None
     return RunOutcome(frame, tuple(results), rd.run_id if rd else None, str(rd.path) if rd else None,
                       "complete", tuple(selected), plan.skipped, plan.notes)
 
