@@ -888,6 +888,14 @@ def _reached(frame: Any, j: int) -> bool:
     return bool(v == v)  # NaN: not reached
 
 
+def _host(rows: Any, j: int) -> str:
+    """The machine a saved run's target ``j`` was timed on ('' for runs saved before it was recorded)."""
+    if "timed_on" not in rows:
+        return ""
+    v = rows.at[j, "timed_on"]
+    return "" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v)
+
+
 def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comparison:
     """Compare two saved runs' tables (no new measurement).
 
@@ -898,7 +906,9 @@ def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comp
     target and, divided by the iterations, time per step. Saved runs keep
     only the median time, and were measured at different times, so there is
     no interval (whether a change excludes no change is unknown) and no drift
-    cancellation: the ratios are descriptive.
+    cancellation: the ratios are descriptive. A case timed on different
+    machines in the two runs (``timed_on``) gets no time figure: one ratio never
+    mixes machines.
     """
     fa, label_a = _run_table(out, run_a)
     fb, label_b = _run_table(out, run_b)
@@ -924,6 +934,12 @@ def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comp
                                         "no target reached and timed in both runs"))
             continue
         j = both[0]
+        host_a, host_b = _host(ra, j), _host(rb, j)
+        if host_a and host_b and host_a != host_b:
+            cases.append(CaseComparison(inst, status_a, status_b, None, None, None, (), (), None, None,
+                                        f"no time figure: timed on different machines (A on {host_a}, "
+                                        f"B on {host_b}); a ratio of the two would mix machines"))
+            continue
         ka, kb = int(ra.at[j, "iterations"]), int(rb.at[j, "iterations"])
         ta, tb = float(ra.at[j, "time_to_target"]), float(rb.at[j, "time_to_target"])
         ttt = Change(math.log(tb / ta))
