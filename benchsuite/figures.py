@@ -1,0 +1,309 @@
+"""Every figure benchsuite draws (matplotlib, Agg backend, imported only by the commands that draw).
+
+Each function takes plain values (traces, cost matrices, a comparison) and
+returns a :class:`matplotlib.figure.Figure`; :func:`png` turns one into PNG
+bytes and frees it. No pyplot: figures are built directly on the Agg canvas,
+so nothing global (an interactive backend, a figure registry) is touched.
+
+Readable without colour: rules get the Okabe-Ito colour-blind-safe palette
+*and* a line style and a marker, assigned in one place (:func:`rule_styles`)
+so a rule looks the same in every figure. Dashed lines are reserved for
+theory bounds, dotted grey lines for targets.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from benchsuite.curves import bound_points, first_divergence, seed_band, trace_xy
+from benchsuite.profiles import CostMatrix, data_profile, performance_profile, performance_ratios, profile_breaks
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
+    from benchsuite.compare import Comparison
+
+__all__ = [
+    "PALETTE",
+    "RuleCurves",
+    "Style",
+    "compare_figure",
+    "convergence_figure",
+    "data_profile_figure",
+    "gate_figure",
+    "performance_profile_figure",
+    "png",
+    "rule_styles",
+]
+
+#: Okabe & Ito, "Color Universal Design" (2008): distinguishable with every common colour-vision deficiency
+PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#000000", "#F0E442")
+#: rule line styles; "--" is left out on purpose (theory bounds)
+LINESTYLES = ("-", "-.", ":", (0, (5, 1, 1, 1, 1, 1)))
+MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*", "<", ">", "h")
+BOUND_STYLE = "--"
+DPI = 90
+
+
+@dataclass(frozen=True)
+class Style:
+    color: str
+    linestyle: Any
+    marker: str
+
+    def kw(self) -> dict[str, Any]:
+        return {"color": self.color, "linestyle": self.linestyle, "marker": self.marker}
+
+
+def rule_styles(rules: Sequence[str]) -> dict[str, Style]:
+    """A distinct (colour, line style, marker) per rule, stable for a given list of rules.
+
+    With 8 colours, 4 line styles and 11 markers the triple repeats only after
+    88 rules; neighbours differ in all three.
+    """
+    return {r: Style(PALETTE[i % len(PALETTE)], LINESTYLES[i % len(LINESTYLES)], MARKERS[i % len(MARKERS)])
+            for i, r in enumerate(sorted(dict.fromkeys(rules)))}
+
+
+def _figure(width: float, height: float) -> Figure:
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)  # harmless when already Agg; never an interactive backend
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width, height), dpi=DPI, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def png(fig: Figure, dpi: int = DPI) -> bytes:
+    """The figure as PNG bytes (metadata stripped so the same figure gives the same bytes)."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    fig.clear()
+    return buf.getvalue()
+
+
+def _targets(ax: Any, targets: Sequence[float]) -> None:
+    for t in targets:
+        ax.axhline(t, color="0.55", linestyle=":", linewidth=0.8, zorder=0)
+    ax.set_yscale("log")
+
+
+def _legend(fig: Figure, handles: list[Any], labels: list[str]) -> None:
+    if handles:
+        fig.legend(handles, labels, loc="outside right upper", fontsize=8, frameon=False)
+
+
+# -- convergence curves --------------------------------------------------------------------
+@dataclass(frozen=True)
+class RuleCurves:
+    """What one rule contributes to a problem's convergence figure."""
+
+    rule: str
+    traces: tuple[Any, ...]  # one Trace per seed
+    theory_bound: tuple[int | None, ...] = ()
+    bound_source: str = ""
+
+
+def convergence_figure(
+    curves: Sequence[RuleCurves],
+    targets: Sequence[float],
+    *,
+    title: str,
+    measure: str = "measure",
+    styles: Mapping[str, Style] | None = None,
+) -> Figure:
+    """Measure against iterations (left) and seconds (right), one line per rule, log-log.
+
+    One seed: its trace. Several: the median over seeds, shaded from min to
+    max (:func:`benchsuite.curves.seed_band`). Targets are dotted guides; a
+    rule's theory bound is a dashed line through (bound iterations, target)
+    points. The right panel uses the replay's wall-clock positions; a rule
+    without them is left out there.
+    """
+    styles = styles or rule_styles([c.rule for c in curves])
+    fig = _figure(11.0, 3.9)
+    ax_it, ax_s = fig.subplots(1, 2)
+    handles, labels = [], []
+    missing_time = []
+    for c in curves:
+        st = styles[c.rule]
+        line = None
+        for ax, axis in ((ax_it, "iteration"), (ax_s, "seconds")):
+            band = seed_band(c.traces, axis)
+            if band is None:
+                if axis == "seconds":
+                    missing_time.append(c.rule)
+                continue
+            keep = band.x > 0  # log axis: iteration 0 / time 0 is the start point
+            x, med = band.x[keep], band.median[keep]
+            drawn = ax.plot(x, med, label=c.rule, linewidth=1.4, markevery=0.12, markersize=4, **st.kw())[0]
+            if band.seeds > 1:
+                ax.fill_between(x, band.lo[keep], band.hi[keep], color=st.color, alpha=0.18, linewidth=0)
+            line = line or drawn
+        if line is not None:
+            handles.append(line)
+            labels.append(c.rule)
+        pts = bound_points(c.theory_bound, targets)
+        if pts:
+            ks, ts = zip(*pts)
+            b = ax_it.plot(ks, ts, linestyle=BOUND_STYLE, color=st.color, marker="x", linewidth=1.0, markersize=5)[0]
+            handles.append(b)
+            labels.append(f"{c.rule}: theory bound")
+    for ax, xlabel in ((ax_it, "iterations (log)"), (ax_s, "seconds, timing replay (log)")):
+        _targets(ax, targets)
+        ax.set_xscale("log")
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(measure)
+        ax.grid(True, which="major", alpha=0.25)
+    if missing_time and len(missing_time) == len(curves):
+        ax_s.text(0.5, 0.5, "no replay times recorded", transform=ax_s.transAxes, ha="center", va="center")
+    fig.suptitle(title, fontsize=10)
+    _legend(fig, handles, labels)
+    return fig
+
+
+# -- profiles --------------------------------------------------------------------------------
+def _profile_axes(n: int) -> tuple[Figure, list[Any]]:
+    """Panels two to a row (one per target)."""
+    cols = min(max(n, 1), 2)
+    rows = math.ceil(max(n, 1) / cols)
+    fig = _figure(4.6 * cols + 1.8, 3.1 * rows + 0.5)
+    axes = fig.subplots(rows, cols, squeeze=False).ravel()
+    for ax in axes[n:]:
+        ax.set_visible(False)
+    return fig, list(axes[:max(n, 1)])
+
+
+def _stairs(ax: Any, xs: np.ndarray, ys: np.ndarray, st: Style, label: str) -> Any:
+    return ax.step(xs, ys, where="post", label=label, linewidth=1.4, markevery=max(1, len(xs) // 8),
+                   markersize=4, **st.kw())[0]
+
+
+def performance_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mapping[str, Style] | None = None,
+                               title: str = "") -> Figure:
+    """One panel per target: rho_s(tau), the fraction of problems on which a rule is within tau of the best."""
+    rules = sorted({r for m in matrices for r in m.rules})
+    styles = styles or rule_styles(rules)
+    fig, axes = _profile_axes(len(matrices))
+    handles: dict[str, Any] = {}
+    for ax, m in zip(axes, matrices):
+        r = performance_ratios(m.costs)
+        top = float(profile_breaks(r).max()) if profile_breaks(r).size else 1.0
+        taus = np.unique(np.concatenate([[1.0], profile_breaks(r), [max(2.0, top * 1.5)]]))
+        rho = performance_profile(m.costs, taus)
+        for j, rule in enumerate(m.rules):
+            handles[rule] = _stairs(ax, taus, rho[j], styles[rule], rule)
+        ax.set_xscale("log", base=2)
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_xlabel(f"tau (ratio to the best, {m.unit})")
+        ax.set_title(f"target {m.target:g}  ({len(m.problems)} problems)", fontsize=9)
+        ax.grid(True, alpha=0.25)
+    for ax in axes[::2]:
+        ax.set_ylabel("fraction of problems")
+    fig.suptitle(title or "Performance profiles (Dolan & Moré 2002); a failure counts as infinity", fontsize=10)
+    _legend(fig, list(handles.values()), list(handles))
+    return fig
+
+
+def data_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mapping[str, Style] | None = None,
+                        title: str = "") -> Figure:
+    """One panel per target: d_s(alpha), the fraction solved within alpha (d + 1) gradient evaluations."""
+    rules = sorted({r for m in matrices for r in m.rules})
+    styles = styles or rule_styles(rules)
+    fig, axes = _profile_axes(len(matrices))
+    handles: dict[str, Any] = {}
+    for ax, m in zip(axes, matrices):
+        dims = np.array([d if d > 0 else 1 for d in m.dims], dtype=float)
+        scaled = m.costs / (dims[:, None] + 1.0) if m.costs.size else m.costs
+        br = profile_breaks(scaled)
+        lo = float(br.min()) / 1.5 if br.size else 0.5
+        hi = float(br.max()) * 1.5 if br.size else 2.0
+        alphas = np.unique(np.concatenate([[lo], br, [hi]]))
+        d = data_profile(m.costs, dims, alphas)
+        for j, rule in enumerate(m.rules):
+            handles[rule] = _stairs(ax, alphas, d[j], styles[rule], rule)
+        ax.set_xscale("log")
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_xlabel("alpha: gradient evaluations / (d + 1)")
+        ax.set_title(f"target {m.target:g}  ({len(m.problems)} problems)", fontsize=9)
+        ax.grid(True, alpha=0.25)
+    for ax in axes[::2]:
+        ax.set_ylabel("fraction of problems solved")
+    fig.suptitle(title or "Data profiles (Moré & Wild 2009): budget in simplex gradients, d + 1 gradient "
+                          "evaluations for a problem of dimension d", fontsize=10)
+    _legend(fig, list(handles.values()), list(handles))
+    return fig
+
+
+# -- gate: baseline against candidate ---------------------------------------------------------
+def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, title: str,
+                labels: tuple[str, str] = ("baseline", "candidate"), rtol: float = 1e-9,
+                measure: str = "measure") -> Figure:
+    """Two traces of one case overlaid, the first iteration where they part marked (``rtol`` relative)."""
+    fig = _figure(7.5, 3.8)
+    ax = fig.subplots()
+    styles = (Style(PALETTE[0], "-", "o"), Style(PALETTE[5], "-.", "s"))
+    for tr, st, lab in ((baseline, styles[0], labels[0]), (candidate, styles[1], labels[1])):
+        x, y = trace_xy(tr, "iteration")
+        keep = x > 0
+        ax.plot(x[keep], y[keep], label=lab, linewidth=1.4, markevery=0.12, markersize=4, **st.kw())
+    _targets(ax, targets)
+    ax.set_xscale("log")
+    k = first_divergence(baseline, candidate, rtol)
+    if k is not None and k > 0:
+        ax.axvline(k, color="0.2", linestyle=BOUND_STYLE, linewidth=1.0)
+        ax.annotate(f"first divergence: iteration {k}", xy=(k, 0.97), xycoords=("data", "axes fraction"),
+                    ha="left", va="top", fontsize=8, xytext=(4, 0), textcoords="offset points")
+    else:
+        ax.text(0.02, 0.04, "identical at every recorded iteration" if k is None else "differ from the start",
+                transform=ax.transAxes, fontsize=8)
+    ax.set_xlabel("iterations (log)")
+    ax.set_ylabel(measure)
+    ax.grid(True, alpha=0.25)
+    ax.legend(fontsize=8, frameon=False)
+    ax.set_title(title, fontsize=10)
+    return fig
+
+
+# -- compare: forest plot ---------------------------------------------------------------------
+def compare_figure(comparison: Comparison, *, title: str = "") -> Figure:
+    """Per case the time ratio B/A with its interval, and the overall geometric mean (a diamond)."""
+    cases = [c for c in comparison.cases if c.ratio is not None]
+    n = len(cases)
+    fig = _figure(7.5, 1.2 + 0.32 * (n + 2))
+    ax = fig.subplots()
+    ys = np.arange(n, 0, -1, dtype=float)
+    for y, c in zip(ys, cases):
+        lo, hi = c.ci if c.ci is not None else (c.ratio, c.ratio)
+        color = PALETTE[5] if c.significant and c.ratio > 1 else PALETTE[2] if c.significant else "0.35"
+        ax.errorbar([c.ratio], [y], xerr=[[c.ratio - lo], [hi - c.ratio]], fmt="s", color=color, capsize=3,
+                    markersize=5)
+    if comparison.ratio is not None:
+        lo, hi = comparison.ci if comparison.ci is not None else (comparison.ratio, comparison.ratio)
+        r = comparison.ratio
+        ax.fill([lo, r, hi, r], [-0.5, -0.25, -0.5, -0.75], color=PALETTE[0])
+    ax.axvline(1.0, color="0.2", linewidth=0.9)
+    ax.set_yticks(list(ys) + [-0.5], [c.instance for c in cases] + ["geometric mean"], fontsize=8)
+    ax.set_xscale("log")
+    ax.set_xlabel(f"time ratio B / A (log; < 1: B faster)   A = {comparison.label_a}, B = {comparison.label_b}")
+    ax.set_ylim(-1.2, n + 0.8)
+    ax.grid(True, axis="x", alpha=0.25)
+    ax.set_title(title or "Speed-up per case with 95 % interval; the diamond: geometric mean over cases",
+                 fontsize=10)
+    return fig
+
+
+def nice(v: float) -> str:
+    """A short number for captions."""
+    if v is None or not math.isfinite(v):
+        return "-"
+    return f"{v:.3g}"

@@ -1,0 +1,304 @@
+"""Earlier runs as stored on disk: listing them, opening one, reading its traces.
+
+Reads only what the runner writes under ``<out>/runs/<run-id>/`` (``meta.json``,
+``cases/*.json``, ``table.csv``, ``traces/*.npz``), never the SQLite history,
+so a run that was interrupted or killed before it was recorded is listed too.
+
+Status of a listed run (from ``meta.json``'s ``status``):
+
+* ``complete`` -- the run finished and closed itself;
+* ``partial`` -- stopped by Ctrl-C: it closed itself with the cases that had
+  finished (``benchsuite run --resume RUN_ID`` completes it);
+* ``interrupted`` -- it never closed (``meta.json`` still says ``running``):
+  the process was killed, the machine went down -- or it is still running.
+
+Every trace is read by :func:`load_traces` and nowhere else.
+"""
+
+from __future__ import annotations
+
+import fnmatch
+import hashlib
+import json
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from benchsuite.errors import UserError
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+__all__ = [
+    "NO_TRACES",
+    "RunInfo",
+    "StoredRun",
+    "Trace",
+    "case_stem",
+    "latest_run_id",
+    "list_runs",
+    "load_traces",
+    "open_run",
+    "write_traces",
+]
+
+#: said wherever a run has no traces to draw
+NO_TRACES = "this run has no traces (recorded before traces existed), so it has tables but no curves"
+
+_STATUS = {"complete": "complete", "partial": "partial", "running": "interrupted"}
+
+try:  # the runner's value type, once it is on main
+    from benchsuite.cases import Trace  # type: ignore[attr-defined]
+except ImportError:  # pragma: no cover - replaced when the runner split lands
+
+    @dataclass(frozen=True)
+    class Trace:  # type: ignore[no-redef]
+        """One seed's convergence trace (the PLAN.md contract; the runner's own type replaces this)."""
+
+        iteration: np.ndarray  # int64, starts at 0
+        measure: np.ndarray  # float64
+        dist: np.ndarray  # float64, nan where unknown
+        grad_calls: np.ndarray  # int64
+        seconds: np.ndarray  # float64, nan where not replayed
+
+
+_TRACE_FIELDS = ("iteration", "measure", "dist", "grad_calls", "seconds")
+
+
+def case_stem(case_key: str) -> str:
+    """The file stem of a case inside a run folder (``cases/<stem>.json``, ``traces/<stem>.npz``)."""
+    return hashlib.sha256(case_key.encode()).hexdigest()[:24]
+
+
+def load_traces(run_path: str | Path, case_key: str) -> dict[int, Trace]:
+    """Seed -> :class:`Trace` of one case; ``{}`` when the run has no traces for it.
+
+    Uses ``RunDir.load_traces`` when the results module has it; otherwise reads
+    ``traces/<stem>.npz`` (arrays ``seed``, ``iteration``, ``measure``, ``dist``,
+    ``grad_calls``, ``seconds``, one row per seed and point) itself. This
+    fallback goes once the runner's reader is on main.
+    """
+    from benchsuite import results
+
+    run_path = Path(run_path)
+    if hasattr(results.RunDir, "load_traces"):
+        return dict(results.RunDir(run_path, run_path.name).load_traces(case_key))
+    file = run_path / "traces" / f"{case_stem(case_key)}.npz"
+    if not file.is_file():
+        return {}
+    try:
+        with np.load(file, allow_pickle=False) as z:
+            cols = {k: np.asarray(z[k]) for k in ("seed", *_TRACE_FIELDS)}
+    except (OSError, ValueError, KeyError) as exc:
+        raise UserError(f"{file}: cannot read traces ({exc})") from None
+    out: dict[int, Trace] = {}
+    for seed in np.unique(cols["seed"]):
+        rows = cols["seed"] == seed
+        out[int(seed)] = Trace(**{k: cols[k][rows] for k in _TRACE_FIELDS})
+    return out
+
+
+def write_traces(run_path: str | Path, case_key: str, traces: Mapping[int, Trace]) -> Path:
+    """Store traces in the contract's layout (used by tests and by synthetic runs)."""
+    import io
+
+    from benchsuite.results import atomic_write_bytes
+
+    seeds = sorted(traces)
+    arrays: dict[str, np.ndarray] = {
+        "seed": np.concatenate([np.full(len(traces[s].iteration), s, dtype=np.int64) for s in seeds])
+    }
+    dtypes = {"iteration": np.int64, "grad_calls": np.int64}
+    for k in _TRACE_FIELDS:
+        arrays[k] = np.concatenate([np.asarray(getattr(traces[s], k), dtype=dtypes.get(k, np.float64)) for s in seeds])
+    buf = io.BytesIO()
+    np.savez_compressed(buf, **arrays)
+    path = Path(run_path) / "traces" / f"{case_stem(case_key)}.npz"
+    atomic_write_bytes(path, buf.getvalue())
+    return path
+
+
+# -- listing -------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class RunInfo:
+    """One line of the run listing."""
+
+    run_id: str
+    path: Path
+    started: str
+    ended: str
+    status: str  # complete / partial / interrupted (see the module docstring)
+    rules: tuple[str, ...]
+    problems: tuple[str, ...]  # instances of the cases stored so far
+    cases_done: int
+    cases_planned: int | None
+    failed: int  # stored cases with status error, timeout or diverged
+    commit: str | None
+    dirty: bool | None
+    selector: str  # what was asked for: --problems or the tier
+
+    @property
+    def commit_text(self) -> str:
+        if not self.commit:
+            return "-"
+        return self.commit[:10] + ("+dirty" if self.dirty else "")
+
+
+def _runs_folder(out: str | Path) -> Path:
+    return Path(out) / "runs"
+
+
+def _read_json(path: Path) -> dict[str, Any] | None:
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError):
+        return None
+    return doc if isinstance(doc, dict) else None
+
+
+def _case_docs(path: Path) -> dict[str, dict[str, Any]]:
+    found: dict[str, dict[str, Any]] = {}
+    for file in sorted((path / "cases").glob("*.json")):
+        doc = _read_json(file)
+        if doc is not None and isinstance(doc.get("key"), str):
+            found[doc["key"]] = doc
+    return found
+
+
+def _info(path: Path, meta: dict[str, Any]) -> RunInfo:
+    cases = _case_docs(path)
+    req = meta.get("request") or {}
+    git = meta.get("git") or {}
+    selector = req.get("problems") or f"tier {req.get('tier') or 'all'}"
+    planned = meta.get("n_cases")
+    return RunInfo(
+        run_id=path.name,
+        path=path,
+        started=str(meta.get("started") or "-"),
+        ended=str(meta.get("ended") or "-"),
+        status=_STATUS.get(str(meta.get("status")), str(meta.get("status"))),
+        rules=tuple(meta.get("rules") or req.get("rules") or ()),
+        problems=tuple(sorted({k.split(" | ")[0] for k in cases})),
+        cases_done=len(cases),
+        cases_planned=int(planned) if isinstance(planned, int) else None,
+        failed=sum(1 for d in cases.values() if d.get("status") in ("error", "timeout", "diverged")),
+        commit=git.get("commit"),
+        dirty=git.get("dirty"),
+        selector=str(selector),
+    )
+
+
+def list_runs(out: str | Path = "results") -> list[RunInfo]:
+    """Every run folder with a readable ``meta.json``, oldest first (by start time, then id)."""
+    folder = _runs_folder(out)
+    if not folder.is_dir():
+        return []
+    infos = []
+    for path in folder.iterdir():
+        meta = _read_json(path / "meta.json") if path.is_dir() else None
+        if meta is not None:
+            infos.append(_info(path, meta))
+    return sorted(infos, key=lambda i: (i.started, i.run_id))
+
+
+def latest_run_id(out: str | Path = "results") -> str:
+    runs = list_runs(out)
+    if not runs:
+        raise UserError(f"{_runs_folder(out)}: no runs yet (run `benchsuite run` first)")
+    return runs[-1].run_id
+
+
+# -- one run -------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class StoredRun:
+    """A run folder read for presentation: its metadata, stored cases and table."""
+
+    run_id: str
+    path: Path
+    meta: dict[str, Any]
+    cases: dict[str, dict[str, Any]]  # case key -> the stored case record (runner.result_to_dict)
+    frame: pd.DataFrame  # the tidy table (table.csv, or rebuilt from the cases of an unclosed run)
+    info: RunInfo = field(repr=False)
+
+    def traces(self, case_key: str) -> dict[int, Trace]:
+        return load_traces(self.path, case_key)
+
+    def has_traces(self) -> bool:
+        return (self.path / "traces").is_dir() and any((self.path / "traces").glob("*.npz"))
+
+    def failed_cases(self, pattern: str | None = None) -> list[dict[str, Any]]:
+        """Stored cases with a seed that has an error message, optionally only keys matching a glob."""
+        out = []
+        for key, doc in sorted(self.cases.items()):
+            if pattern and not (fnmatch.fnmatchcase(key, pattern) or fnmatch.fnmatchcase(key.split(" | ")[0], pattern)):
+                continue
+            if doc.get("status") in ("error", "timeout", "diverged") or any(
+                    o.get("error") for o in doc.get("outcomes", ())):
+                out.append(doc)
+        return out
+
+
+def open_run(out: str | Path = "results", run_id: str | None = None) -> StoredRun:
+    """The run ``run_id`` (default: the latest) under ``out``; ``UserError`` when there is none."""
+    import pandas as pd
+
+    if run_id is None:
+        run_id = latest_run_id(out)
+    path = _runs_folder(out) / run_id
+    if "/" in run_id or run_id in (".", "..") or not (path / "meta.json").is_file():
+        known = [i.run_id for i in list_runs(out)][-3:]
+        hint = f" (latest: {', '.join(known)})" if known else ""
+        raise UserError(f"run {run_id!r}: no such run under {_runs_folder(out)}{hint}")
+    meta = _read_json(path / "meta.json")
+    if meta is None:
+        raise UserError(f"{path / 'meta.json'}: cannot read run metadata")
+    cases = _case_docs(path)
+    table = path / "table.csv"
+    if table.is_file():
+        try:
+            frame = pd.read_csv(table)
+        except (OSError, ValueError, pd.errors.ParserError) as exc:
+            raise UserError(f"{table}: cannot read the results table ({exc})") from None
+    else:
+        frame = _frame_from_cases(cases)
+    return StoredRun(run_id, path, meta, cases, frame, _info(path, meta))
+
+
+def _num(v: Any) -> float | None:
+    if v is None:
+        return None
+    if isinstance(v, str):
+        return float(v) if v in ("nan", "inf", "-inf") else None
+    return float(v)
+
+
+def _frame_from_cases(cases: Mapping[str, Mapping[str, Any]]) -> pd.DataFrame:
+    """A table for a run that never wrote ``table.csv`` (killed): the columns the report uses.
+
+    The key holds the instance, rule and oracle; targets are not in the case
+    record, so ``target`` is the index of the target (drawn as such).
+    """
+    import pandas as pd
+
+    from benchsuite.results import TABLE_COLUMNS
+
+    rows = []
+    for key, doc in cases.items():
+        parts = key.split(" | ")
+        for o in doc.get("outcomes", ()):
+            for j, k in enumerate(o.get("iters") or ()):
+                ttt = o.get("time_to_target") or ()
+                rows.append({
+                    "case": key, "instance": parts[0], "rule": parts[1] if len(parts) > 1 else "?",
+                    "oracle": parts[2] if len(parts) > 2 else "full", "seed": o.get("seed"),
+                    "target_index": j, "target": math.nan, "iterations": k,
+                    "grad_calls": (o.get("grad_calls") or [None] * (j + 1))[j],
+                    "time_to_target": ttt[j] if j < len(ttt) else None, "status": o.get("status"),
+                    "case_status": doc.get("status"), "final_measure": _num(o.get("final_measure")),
+                    "iterations_run": o.get("iterations_run"),
+                })
+    return pd.DataFrame(rows, columns=list(TABLE_COLUMNS))
