@@ -238,8 +238,8 @@ def data_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mapping[str, 
         ax.grid(True, alpha=0.25)
     for ax in axes[::2]:
         ax.set_ylabel("fraction of problems solved")
-    fig.suptitle(title or "Data profiles (Moré & Wild 2009): budget in simplex gradients, d + 1 gradient "
-                          "evaluations for a problem of dimension d", fontsize=10)
+    fig.suptitle(title or "Data profiles (Moré & Wild 2009): alpha = gradient evaluations / (d + 1), d the dimension",
+                 fontsize=10)
     _legend(fig, list(handles.values()), list(handles))
     return fig
 
