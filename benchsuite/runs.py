@@ -21,7 +21,7 @@ import fnmatch
 import hashlib
 import json
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -264,7 +264,7 @@ def open_run(out: str | Path = "results", run_id: str | None = None) -> StoredRu
         except (OSError, ValueError, pd.errors.ParserError) as exc:
             raise UserError(f"{table}: cannot read the results table ({exc})") from None
     else:
-        frame = _frame_from_cases(cases)
+        frame = _frame_from_cases(cases, _catalogue_targets(meta))
     return StoredRun(run_id, path, meta, cases, frame, _info(path, meta))
 
 
@@ -276,11 +276,24 @@ def _num(v: Any) -> float | None:
     return float(v)
 
 
-def _frame_from_cases(cases: Mapping[str, Mapping[str, Any]]) -> pd.DataFrame:
+def _catalogue_targets(meta: Mapping[str, Any]) -> dict[str, tuple[float, ...]]:
+    """Instance name -> its targets, from the catalogue the run used ({} when it cannot be read here)."""
+    from benchsuite.catalogue import load_catalogue
+
+    try:
+        cat = load_catalogue(list((meta.get("request") or {}).get("catalogue") or ()) or None)
+    except UserError:
+        return {}
+    return {name: tuple(float(t) for t in inst.targets) for name, inst in cat.items()}
+
+
+def _frame_from_cases(cases: Mapping[str, Mapping[str, Any]],
+                      targets: Mapping[str, Sequence[float]] | None = None) -> pd.DataFrame:
     """A table for a run that never wrote ``table.csv`` (killed): the columns the report uses.
 
-    The key holds the instance, rule and oracle; targets are not in the case
-    record, so ``target`` is the index of the target (drawn as such).
+    The key holds the instance, rule and oracle; the case record has no
+    targets, so they come from the catalogue (``targets``), or from the key
+    when the run overrode them; ``nan`` when neither knows.
     """
     import pandas as pd
 
@@ -289,13 +302,17 @@ def _frame_from_cases(cases: Mapping[str, Mapping[str, Any]]) -> pd.DataFrame:
     rows = []
     for key, doc in cases.items():
         parts = key.split(" | ")
+        tgt: Sequence[float] = (targets or {}).get(parts[0], ())
+        for p in parts:
+            if p.startswith("targets="):
+                tgt = [float(t) for t in p[len("targets="):].split(",")]
         for o in doc.get("outcomes", ()):
             for j, k in enumerate(o.get("iters") or ()):
                 ttt = o.get("time_to_target") or ()
                 rows.append({
                     "case": key, "instance": parts[0], "rule": parts[1] if len(parts) > 1 else "?",
                     "oracle": parts[2] if len(parts) > 2 else "full", "seed": o.get("seed"),
-                    "target_index": j, "target": math.nan, "iterations": k,
+                    "target_index": j, "target": tgt[j] if j < len(tgt) else math.nan, "iterations": k,
                     "grad_calls": (o.get("grad_calls") or [None] * (j + 1))[j],
                     "time_to_target": ttt[j] if j < len(ttt) else None, "status": o.get("status"),
                     "case_status": doc.get("status"), "final_measure": _num(o.get("final_measure")),
