@@ -104,8 +104,12 @@ class _Pipe:
         return json.loads(raw)
 
 
-def open_page(page: Path, profile: Path, *, width: int = 1280, height: int = 2400, timeout: float = 90.0) -> PageCheck:
-    """Load ``page`` (a local file) in headless Chromium and collect a :class:`PageCheck`."""
+def open_page(page: Path, profile: Path, *, width: int = 1280, height: int = 2400, timeout: float = 90.0,
+              wait_images_attr: float = 10.0) -> PageCheck:
+    """Load ``page`` (a local file) in headless Chromium and collect a :class:`PageCheck`.
+
+    ``wait_images_attr``: seconds to wait after the load event for ``<body data-images>``.
+    """
     exe = find_chromium()
     if exe is None:
         raise FileNotFoundError("chromium not found")
@@ -140,7 +144,7 @@ def open_page(page: Path, profile: Path, *, width: int = 1280, height: int = 240
             return pipe.send("Runtime.evaluate", {"expression": expr, "returnByValue": True},
                              session=session)["result"].get("value")
 
-        deadline = time.monotonic() + 10
+        deadline = time.monotonic() + wait_images_attr
         while out.images_attr is None and time.monotonic() < deadline:
             out.images_attr = evaluate("document.body && document.body.getAttribute('data-images')")
             if out.images_attr is None:
