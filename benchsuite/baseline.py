@@ -5,9 +5,13 @@ holds, per case, everything needed to rerun the case exactly (instance name and
 a hash of its definition, the rule with every hyperparameter actually used,
 oracle, batch, sampling, seeds, budget, targets, measure) and what the rule
 achieved (per seed: status, first iteration meeting each target, final measure,
-final relative distance to x*, and the *trajectory fingerprint*: the measure at
-iterations 1, 2, 4, 8, ...). Plus the schema version, the tool version and
-machine information.
+final relative distance to x*, the *trajectory fingerprint* -- the measure at
+every iteration to 16, then on a geometric grid, and at the final iterate --
+with its round-off envelope, the held crossings and the stay-converged
+horizon), and where the instance came from. Plus the schema version, the tool
+version and machine information. Version 1 files still load (their
+fingerprint is at iterations 1, 2, 4, 8, ...; no envelope; crossings taken as
+held).
 
 The file is written for review: keys sorted, indent 2, cases sorted by key,
 floats written with ``repr`` (so they read back bit for bit); non-finite floats
@@ -21,8 +25,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import tempfile
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -46,9 +48,12 @@ __all__ = [
 ]
 
 #: identifies the file format; bump the number on an incompatible change
-SCHEMA = "benchsuite-baseline/1"
+SCHEMA = "benchsuite-baseline/2"
+#: older formats this version still reads (one release of compatibility): version 1 had the
+#: fingerprint at iterations 1, 2, 4, 8, ... and no envelope, held crossings or horizon
+READS = ("benchsuite-baseline/1", SCHEMA)
 
-_STATUSES = ("reached", "partial", "budget", "diverged", "error", "timeout")
+_STATUSES = ("reached", "partial", "budget", "unstable", "diverged", "error", "timeout")
 _ORACLES = ("full", "minibatch")
 _MEASURES = ("subopt", "dist", "gradnorm")
 
@@ -64,8 +69,20 @@ class SeedRecord:
     final_measure: float
     final_dist: float  # ||x_K - x*|| / ||x0 - x*||
     iterations_run: int
-    fingerprint: tuple[float, ...]  # measure at iterations 1, 2, 4, 8, ...
+    fingerprint: tuple[float, ...]  # measure at each of ``checkpoints``
     error: str | None = None
+    checkpoints: tuple[int, ...] = ()  # dense then geometric (version 1: 1, 2, 4, 8, ...)
+    envelope: tuple[float, ...] = ()  # relative round-off sensitivity per checkpoint (empty: not recorded)
+    held: tuple[int | None, ...] = ()  # per target: held from this iteration to the end of the pass
+    horizon: int = 0  # steps run after the tightest target was first reached
+    left_at: int | None = None  # first horizon iteration above the tightest target
+    horizon_worst: float | None = None  # largest measure over the horizon (None: no horizon ran)
+
+    def __post_init__(self) -> None:
+        if not self.checkpoints and self.fingerprint:  # version 1: powers of two
+            object.__setattr__(self, "checkpoints", tuple(2**i for i in range(len(self.fingerprint))))
+        if not self.held and self.iters:  # version 1: crossings were taken as held
+            object.__setattr__(self, "held", tuple(self.iters))
 
 
 @dataclass(frozen=True)
@@ -89,6 +106,9 @@ class CaseRecord:
     status: str
     outcomes: tuple[SeedRecord, ...]
     theory_bound: tuple[int | None, ...] = ()
+    catalogue: str = "builtin"  # where the instance came from: "builtin" or the catalogue file as given
+    dtype: str | None = None  # the dtype override of the run (None: as catalogued)
+    horizon: tuple[int, float] = (100, 0.5)  # the stay-converged horizon setting of the run
 
     @property
     def stochastic(self) -> bool:
@@ -142,6 +162,12 @@ def record_from_result(result: Any) -> CaseRecord:
             iterations_run=int(o.iterations_run),
             fingerprint=tuple(float(v) for v in o.fingerprint),
             error=None if o.error is None else (str(o.error).strip().splitlines() or [""])[-1],
+            checkpoints=tuple(int(k) for k in o.checkpoints),
+            envelope=tuple(float(v) for v in o.envelope),
+            held=tuple(_opt_int(i) for i in o.held),
+            horizon=int(o.horizon),
+            left_at=_opt_int(o.left_at),
+            horizon_worst=None if o.horizon_worst is None else float(o.horizon_worst),
         )
         for o in result.outcomes
     )
@@ -163,7 +189,25 @@ def record_from_result(result: Any) -> CaseRecord:
         status=str(result.status),
         outcomes=outcomes,
         theory_bound=tuple(_opt_int(b) for b in (result.theory_bound or ())),
+        catalogue=catalogue_of(inst),
+        dtype=case.dtype,
+        horizon=(int(case.horizon[0]), float(case.horizon[1])),
     )
+
+
+def catalogue_of(instance: Any) -> str:
+    """``"builtin"`` for an instance of the built-in catalogue, else the file it was read from."""
+    from benchsuite.catalogue import builtin_dir
+
+    src = getattr(instance, "source", "") or ""
+    if not src:
+        return "builtin"
+    try:
+        if Path(src).resolve().parent == builtin_dir().resolve():
+            return "builtin"
+    except OSError:
+        pass
+    return src
 
 
 def make_baseline(results: Iterable[Any], *, rule_label: str, machine: Mapping[str, Any] | None = None) -> Baseline:
@@ -211,6 +255,12 @@ def _seed_json(s: SeedRecord) -> dict[str, Any]:
         "iterations_run": s.iterations_run,
         "fingerprint": [_enc_float(v) for v in s.fingerprint],
         "error": s.error,
+        "checkpoints": list(s.checkpoints),
+        "envelope": [_enc_float(v) for v in s.envelope],
+        "held": list(s.held),
+        "horizon": s.horizon,
+        "left_at": s.left_at,
+        "horizon_worst": None if s.horizon_worst is None else _enc_float(s.horizon_worst),
     }
 
 
@@ -233,6 +283,9 @@ def _case_json(c: CaseRecord) -> dict[str, Any]:
         "status": c.status,
         "theory_bound": list(c.theory_bound),
         "outcomes": [_seed_json(s) for s in c.outcomes],
+        "catalogue": c.catalogue,
+        "dtype": c.dtype,
+        "horizon": [c.horizon[0], c.horizon[1]],
     }
 
 
@@ -258,18 +311,9 @@ def write_baseline(baseline: Baseline, path: str | Path, *, force: bool = False)
     path = Path(path)
     if path.exists() and not force:
         raise UserError(f"{path}: baseline exists; pass --force to overwrite it")
-    text = dumps(baseline)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    from benchsuite.results import atomic_write_text
+
+    atomic_write_text(path, dumps(baseline))
     return path
 
 
@@ -345,6 +389,12 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
         r.float_(v, f"{where}.fingerprint[{i}]")
         for i, v in enumerate(r.list_(r.get(obj, "fingerprint", where), f"{where}.fingerprint"))
     )
+    if len(iters) and obj.get("checkpoints") and len(obj["checkpoints"]) != len(fp):
+        raise r.fail(f"{where}.checkpoints", f"has {len(obj['checkpoints'])} entries for {len(fp)} fingerprint values")
+    if obj.get("envelope") and len(obj["envelope"]) != len(fp):
+        raise r.fail(f"{where}.envelope", f"has {len(obj['envelope'])} entries for {len(fp)} fingerprint values")
+    if obj.get("held") and len(obj["held"]) != n_targets:
+        raise r.fail(f"{where}.held", f"has {len(obj['held'])} entries for {n_targets} targets")
     err = obj.get("error") if isinstance(obj, Mapping) else None
     if err is not None and not isinstance(err, str):
         raise r.fail(f"{where}.error", f"expected a string or null, got {err!r}")
@@ -358,6 +408,17 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
         iterations_run=r.int_(r.get(obj, "iterations_run", where), f"{where}.iterations_run", minimum=0),
         fingerprint=fp,
         error=err,
+        checkpoints=tuple(
+            r.int_(v, f"{where}.checkpoints[{i}]", minimum=1)
+            for i, v in enumerate(r.list_(obj.get("checkpoints", []), f"{where}.checkpoints"))
+        ),
+        envelope=tuple(
+            r.float_(v, f"{where}.envelope[{i}]") for i, v in enumerate(r.list_(obj.get("envelope", []), f"{where}.envelope"))
+        ),
+        held=tuple(r.opt_int(v, f"{where}.held[{i}]") for i, v in enumerate(r.list_(obj.get("held", []), f"{where}.held"))),
+        horizon=r.int_(obj.get("horizon", 0), f"{where}.horizon", minimum=0),
+        left_at=r.opt_int(obj.get("left_at"), f"{where}.left_at"),
+        horizon_worst=None if obj.get("horizon_worst") is None else r.float_(obj["horizon_worst"], f"{where}.horizon_worst"),
     )
 
 
@@ -402,7 +463,17 @@ def _parse_case(r: _Reader, obj: Any, where: str) -> CaseRecord:
             r.opt_int(v, f"{where}.theory_bound[{i}]")
             for i, v in enumerate(r.list_(obj.get("theory_bound", []), f"{where}.theory_bound"))
         ),
+        catalogue=str(obj.get("catalogue") or "builtin"),
+        dtype=obj.get("dtype"),
+        horizon=_horizon(r, obj.get("horizon", [100, 0.5]), f"{where}.horizon"),
     )
+
+
+def _horizon(r: _Reader, v: Any, where: str) -> tuple[int, float]:
+    items = r.list_(v, where)
+    if len(items) != 2:
+        raise r.fail(where, f"expected [steps, multiple], got {v!r}")
+    return (r.int_(items[0], f"{where}[0]", minimum=0), r.float_(items[1], f"{where}[1]"))
 
 
 def parse_baseline(data: Any, source: str = "<baseline>") -> Baseline:
@@ -411,8 +482,8 @@ def parse_baseline(data: Any, source: str = "<baseline>") -> Baseline:
     if not isinstance(data, Mapping):
         raise UserError(f"{source}: expected a JSON object at the top level")
     schema = r.str_(data, "schema", "")
-    if schema != SCHEMA:
-        raise r.fail("schema", f"{schema!r} is not supported (this tool reads {SCHEMA!r})")
+    if schema not in READS:
+        raise r.fail("schema", f"{schema!r} is not supported (this tool reads {', '.join(map(repr, READS))})")
     machine = data.get("machine", {})
     if not isinstance(machine, Mapping):
         raise r.fail("machine", "expected an object")

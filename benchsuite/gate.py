@@ -203,7 +203,11 @@ def _check_target(i: int, base: CaseRecord, cand: CaseRecord, cfg: GateConfig) -
 
 
 def _fingerprint_diff(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> str | None:
-    for j, (x, y) in enumerate(zip(a.fingerprint, b.fingerprint)):
+    theirs = dict(zip(b.checkpoints, b.fingerprint))
+    for k, x in zip(a.checkpoints, a.fingerprint):  # the checkpoints both passes have
+        if k not in theirs:
+            continue
+        y = theirs[k]
         if math.isnan(x) and math.isnan(y):
             continue
         if x == y:
@@ -211,7 +215,7 @@ def _fingerprint_diff(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> str | No
         if not (math.isfinite(x) and math.isfinite(y)) or abs(x - y) > cfg.exact_rtol * max(abs(x), abs(y)) + cfg.exact_atol:
             rel = abs(x - y) / max(abs(x), abs(y)) if math.isfinite(x) and math.isfinite(y) else math.inf
             return (
-                f"fingerprint changed at iteration {2 ** j} (seed {a.seed}): {x:.6g} -> {y:.6g} "
+                f"fingerprint changed at iteration {k} (seed {a.seed}): {x:.6g} -> {y:.6g} "
                 f"(relative {rel:.1e} > {cfg.exact_rtol:g})"
             )
     return None
