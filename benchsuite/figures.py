@@ -64,10 +64,12 @@ class Style:
 def rule_styles(rules: Sequence[str]) -> dict[str, Style]:
     """A distinct (colour, line style, marker) per rule, stable for a given list of rules.
 
-    With 8 colours, 4 line styles and 11 markers the triple repeats only after
-    88 rules; neighbours differ in all three.
+    The line style shifts by one each time the 8 colours come round again, so
+    (colour, line style) pairs stay distinct for 32 rules even without the
+    markers; neighbours differ in all three.
     """
-    return {r: Style(PALETTE[i % len(PALETTE)], LINESTYLES[i % len(LINESTYLES)], MARKERS[i % len(MARKERS)])
+    n = len(PALETTE)
+    return {r: Style(PALETTE[i % n], LINESTYLES[(i + i // n) % len(LINESTYLES)], MARKERS[i % len(MARKERS)])
             for i, r in enumerate(sorted(dict.fromkeys(rules)))}
 
 

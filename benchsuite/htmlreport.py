@@ -167,7 +167,8 @@ def _summary(run: StoredRun) -> tuple[tuple[str, ...], Table]:
         + (f", minibatch B={req.get('batch')}" if req.get("batch") else ", full gradient") + ").",
         f"Case outcomes: {counts or 'none'}.",
         "Status: reached = every target met; partial = some; budget = none within the iteration budget; "
-        "diverged / error / timeout = the pass failed.",
+        "unstable = every target met, but the measure rose above the tightest target again while the pass went "
+        "on; diverged / error / timeout = the pass failed.",
     ]
     if info.failed:
         sentences.append(f"{info.failed} case(s) failed; their tracebacks: `benchsuite runs {info.run_id} --errors`.")
@@ -181,9 +182,10 @@ def _summary(run: StoredRun) -> tuple[tuple[str, ...], Table]:
         nviol = int(viol.groupby("case")["bound_violated"].apply(lambda s: bool((s == True).any())).sum()) \
             if "bound_violated" in viol else 0  # noqa: E712
         rows.append((str(rule), str(len(g)), str((st == "reached").sum()), str((st == "partial").sum()),
-                     str((st == "budget").sum()), str(st.isin(["diverged", "error", "timeout"]).sum()),
-                     f"{solved}/{len(g)}", str(nviol)))
-    table = Table(("rule", "cases", "reached", "partial", "budget", "failed", "tightest target met", "above bound"),
+                     str((st == "budget").sum()), str((st == "unstable").sum()),
+                     str(st.isin(["diverged", "error", "timeout"]).sum()), f"{solved}/{len(g)}", str(nviol)))
+    table = Table(("rule", "cases", "reached", "partial", "budget", "unstable", "failed", "tightest target met",
+                   "above bound"),
                   tuple(rows))
     return tuple(sentences), table
 
@@ -257,7 +259,8 @@ def _problem_sections(run: StoredRun, draw: Any, traces_ok: bool) -> list[Proble
                 caption = (f"{pname}: measure against iterations and against replayed seconds"
                            + (f", median over {seeds} seeds with min..max band (a seed that stopped keeps its final "
                               "measure)" if seeds > 1 else "")
-                           + ". Dotted: targets."
+                           + ". Dotted: targets. A measure of 0 or below (the optimum to the last bit) has no "
+                           "place on the log axis and is not drawn."
                            + (" Dashed: iterations the theory bound guarantees for each target ("
                               + "; ".join(bounds) + ")." if bounds else ""))
                 fig = draw(f"curves-{_slug(pname)}", figures.convergence_figure(

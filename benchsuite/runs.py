@@ -12,13 +12,12 @@ Status of a listed run (from ``meta.json``'s ``status``):
 * ``interrupted`` -- it never closed (``meta.json`` still says ``running``):
   the process was killed, the machine went down -- or it is still running.
 
-Every trace is read by :func:`load_traces` and nowhere else.
+Every trace is read by :func:`load_traces` (the runner's ``RunDir.load_traces``) and nowhere else.
 """
 
 from __future__ import annotations
 
 import fnmatch
-import hashlib
 import json
 import math
 from collections.abc import Mapping, Sequence
@@ -51,75 +50,34 @@ NO_TRACES = "this run has no traces (recorded before traces existed), so it has 
 
 _STATUS = {"complete": "complete", "partial": "partial", "running": "interrupted"}
 
-try:  # the runner's value type, once it is on main
-    from benchsuite.cases import Trace  # type: ignore[attr-defined]
-except ImportError:  # pragma: no cover - replaced when the runner split lands
-
-    @dataclass(frozen=True)
-    class Trace:  # type: ignore[no-redef]
-        """One seed's convergence trace (the PLAN.md contract; the runner's own type replaces this)."""
-
-        iteration: np.ndarray  # int64, starts at 0
-        measure: np.ndarray  # float64
-        dist: np.ndarray  # float64, nan where unknown
-        grad_calls: np.ndarray  # int64
-        seconds: np.ndarray  # float64, nan where not replayed
-
-
-_TRACE_FIELDS = ("iteration", "measure", "dist", "grad_calls", "seconds")
+from benchsuite.cases import Trace  # noqa: E402  (re-exported: the value every reader here returns)
 
 
 def case_stem(case_key: str) -> str:
     """The file stem of a case inside a run folder (``cases/<stem>.json``, ``traces/<stem>.npz``)."""
-    return hashlib.sha256(case_key.encode()).hexdigest()[:24]
+    from benchsuite.results import RunDir
+
+    return RunDir.case_stem(case_key)
 
 
 def load_traces(run_path: str | Path, case_key: str) -> dict[int, Trace]:
-    """Seed -> :class:`Trace` of one case; ``{}`` when the run has no traces for it.
-
-    Uses ``RunDir.load_traces`` when the results module has it; otherwise reads
-    ``traces/<stem>.npz`` (arrays ``seed``, ``iteration``, ``measure``, ``dist``,
-    ``grad_calls``, ``seconds``, one row per seed and point) itself. This
-    fallback goes once the runner's reader is on main.
-    """
-    from benchsuite import results
+    """Seed -> :class:`Trace` of one case; ``{}`` when the run has no traces for it (the runner's reader)."""
+    from benchsuite.results import RunDir
 
     run_path = Path(run_path)
-    if hasattr(results.RunDir, "load_traces"):
-        return dict(results.RunDir(run_path, run_path.name).load_traces(case_key))
-    file = run_path / "traces" / f"{case_stem(case_key)}.npz"
-    if not file.is_file():
-        return {}
-    try:
-        with np.load(file, allow_pickle=False) as z:
-            cols = {k: np.asarray(z[k]) for k in ("seed", *_TRACE_FIELDS)}
-    except (OSError, ValueError, KeyError) as exc:
-        raise UserError(f"{file}: cannot read traces ({exc})") from None
-    out: dict[int, Trace] = {}
-    for seed in np.unique(cols["seed"]):
-        rows = cols["seed"] == seed
-        out[int(seed)] = Trace(**{k: cols[k][rows] for k in _TRACE_FIELDS})
-    return out
+    return dict(RunDir(run_path, run_path.name).load_traces(case_key))
 
 
 def write_traces(run_path: str | Path, case_key: str, traces: Mapping[int, Trace]) -> Path:
-    """Store traces in the contract's layout (used by tests and by synthetic runs)."""
-    import io
+    """Store traces with the runner's writer (for tests and synthetic runs); returns the file."""
+    from types import SimpleNamespace
 
-    from benchsuite.results import atomic_write_bytes
+    from benchsuite.results import RunDir
 
-    seeds = sorted(traces)
-    arrays: dict[str, np.ndarray] = {
-        "seed": np.concatenate([np.full(len(traces[s].iteration), s, dtype=np.int64) for s in seeds])
-    }
-    dtypes = {"iteration": np.int64, "grad_calls": np.int64}
-    for k in _TRACE_FIELDS:
-        arrays[k] = np.concatenate([np.asarray(getattr(traces[s], k), dtype=dtypes.get(k, np.float64)) for s in seeds])
-    buf = io.BytesIO()
-    np.savez_compressed(buf, **arrays)
-    path = Path(run_path) / "traces" / f"{case_stem(case_key)}.npz"
-    atomic_write_bytes(path, buf.getvalue())
-    return path
+    run_path = Path(run_path)
+    rd = RunDir(run_path, run_path.name)
+    rd.save_traces(case_key, [SimpleNamespace(seed=s, trace=traces[s]) for s in sorted(traces)])
+    return run_path / "traces" / f"{case_stem(case_key)}.npz"
 
 
 # -- listing -------------------------------------------------------------------------------

@@ -1,11 +1,9 @@
 """Run folders for the report tests: a real small run of the tool, plus traces in the PLAN.md layout.
 
 ``real_run`` runs the tool itself (two quadratics, gradient descent, Nesterov
-and a rule that raises at step 3), so tables, meta.json and cases/*.json are
-exactly what the runner writes. Until the runner records traces,
-``add_traces`` writes them in the agreed layout (``traces/<stem>.npz``):
-a geometric decay from 1 to the case's stored final measure on the agreed
-subsample grid, so a figure can be checked against known numbers.
+and a rule that raises at step 3), so tables, meta.json, cases/*.json and
+traces/*.npz are exactly what the runner writes. ``synthetic_trace`` makes a
+trace with known numbers (a geometric decay on the agreed subsample grid).
 """
 
 from __future__ import annotations
@@ -53,22 +51,6 @@ def synthetic_trace(final: float, last: int, seconds_per_step: float | None, wob
     m = np.power(final, k / max(last, 1)) * (1.0 + wobble * np.sin(k))
     sec = np.full(k.shape, np.nan) if seconds_per_step is None else k * seconds_per_step
     return Trace(iteration=k, measure=m, dist=np.sqrt(m), grad_calls=k.copy(), seconds=sec)
-
-
-def add_traces(out: Path, run_id: str) -> None:
-    """Traces for every stored case of a run, from its stored outcomes."""
-    from benchsuite.runs import open_run, write_traces
-
-    run = open_run(out, run_id)
-    for key, doc in run.cases.items():
-        traces = {}
-        for o in doc["outcomes"]:
-            final = float(o["final_measure"]) if not isinstance(o["final_measure"], str) else 1.0
-            if not (0 < final < 1):
-                final = 0.5
-            last = max(int(o["iterations_run"]), 1)
-            traces[int(o["seed"])] = synthetic_trace(final, last, o.get("time_per_step"))
-        write_traces(run.path, key, traces)
 
 
 def interrupted_copy(out: Path, run_id: str, new_id: str, *, drop: int = 1, status: str = "running") -> Path:

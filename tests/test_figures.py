@@ -65,6 +65,8 @@ def test_rule_styles_are_distinct_and_stable() -> None:
     st = figures.rule_styles(rules)
     triples = {(s.color, str(s.linestyle), s.marker) for s in st.values()}
     assert len(triples) == 11
+    many = figures.rule_styles([f"r{i:02d}" for i in range(32)]).values()
+    assert len({(s.color, str(s.linestyle)) for s in many}) == 32  # distinct without looking at markers
     assert figures.rule_styles(list(reversed(rules))) == st
     assert all(s.linestyle != "--" for s in st.values())  # dashes mean theory bound
 

@@ -20,12 +20,12 @@ import runfolders
 
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str, str]:
-    """A results folder with one real run twice: without traces (as today's runs) and with traces."""
+    """A results folder with one real run twice: as recorded (with traces) and as an older run without them."""
     out = tmp_path_factory.mktemp("results")
-    plain = runfolders.real_run(out)
-    traced = "zz-with-traces"
-    shutil.copytree(out / "runs" / plain, out / "runs" / traced)
-    runfolders.add_traces(out, traced)
+    traced = runfolders.real_run(out)
+    plain = "00-recorded-before-traces"
+    shutil.copytree(out / "runs" / traced, out / "runs" / plain)
+    shutil.rmtree(out / "runs" / plain / "traces")
     return out, plain, traced
 
 
