@@ -80,7 +80,7 @@ def _figure(width: float, height: float) -> Figure:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(width, height), dpi=DPI, layout="constrained")
+    fig = Figure(figsize=(width, height), dpi=DPI)  # fixed margins: constrained layout costs 60 % of a report
     FigureCanvasAgg(fig)
     return fig
 
@@ -99,9 +99,18 @@ def _targets(ax: Any, targets: Sequence[float]) -> None:
     ax.set_yscale("log")
 
 
+def _margins(fig: Figure, *, legend: bool, rows: int = 1) -> None:
+    """Fixed margins in inches (axis labels left and below, the legend column right)."""
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=0.75 / w, right=1 - (2.45 if legend else 0.25) / w, bottom=0.6 / h, top=1 - 0.55 / h,
+                        wspace=0.28, hspace=0.5)
+
+
 def _legend(fig: Figure, handles: list[Any], labels: list[str]) -> None:
     if handles:
-        fig.legend(handles, labels, loc="outside right upper", fontsize=8, frameon=False)
+        w, h = fig.get_size_inches()
+        fig.legend(handles, labels, loc="upper left", bbox_to_anchor=(1 - 2.35 / w, 1 - 0.5 / h), fontsize=8,
+                   frameon=False)
 
 
 # -- convergence curves --------------------------------------------------------------------
@@ -132,7 +141,7 @@ def convergence_figure(
     without them is left out there.
     """
     styles = styles or rule_styles([c.rule for c in curves])
-    fig = _figure(11.0, 3.9)
+    fig = _figure(11.5, 3.9)
     ax_it, ax_s = fig.subplots(1, 2)
     handles, labels = [], []
     missing_time = []
@@ -169,6 +178,7 @@ def convergence_figure(
     if missing_time and len(missing_time) == len(curves):
         ax_s.text(0.5, 0.5, "no replay times recorded", transform=ax_s.transAxes, ha="center", va="center")
     fig.suptitle(title, fontsize=10)
+    _margins(fig, legend=True)
     _legend(fig, handles, labels)
     return fig
 
@@ -212,6 +222,7 @@ def performance_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mappin
     for ax in axes[::2]:
         ax.set_ylabel("fraction of problems")
     fig.suptitle(title or "Performance profiles (Dolan & Moré 2002); a failure counts as infinity", fontsize=10)
+    _margins(fig, legend=True, rows=math.ceil(len(matrices) / 2))
     _legend(fig, list(handles.values()), list(handles))
     return fig
 
@@ -242,6 +253,7 @@ def data_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mapping[str, 
         ax.set_ylabel("fraction of problems solved")
     fig.suptitle(title or "Data profiles (Moré & Wild 2009): alpha = gradient evaluations / (d + 1), d the dimension",
                  fontsize=10)
+    _margins(fig, legend=True, rows=math.ceil(len(matrices) / 2))
     _legend(fig, list(handles.values()), list(handles))
     return fig
 
@@ -273,6 +285,7 @@ def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, titl
     ax.grid(True, alpha=0.25)
     ax.legend(fontsize=8, frameon=False)
     ax.set_title(title, fontsize=10)
+    _margins(fig, legend=False)
     return fig
 
 
@@ -301,6 +314,9 @@ def compare_figure(comparison: Comparison, *, title: str = "") -> Figure:
     ax.grid(True, axis="x", alpha=0.25)
     ax.set_title(title or "Speed-up per case with 95 % interval; the diamond: geometric mean over cases",
                  fontsize=10)
+    w, h = fig.get_size_inches()
+    width = max([len(c.instance) for c in cases] + [14])
+    fig.subplots_adjust(left=min(0.6, (0.3 + 0.075 * width) / w), right=1 - 0.25 / w, bottom=0.7 / h, top=1 - 0.45 / h)
     return fig
 
 
