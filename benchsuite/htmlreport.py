@@ -31,7 +31,19 @@ from typing import Any
 
 from benchsuite.runs import NO_TRACES, StoredRun
 
-__all__ = ["Figure", "ProblemSection", "Report", "build_report", "render_html", "render_markdown"]
+__all__ = [
+    "Figure",
+    "Heading",
+    "ProblemSection",
+    "Report",
+    "Table",
+    "build_report",
+    "compare_page",
+    "figure",
+    "page",
+    "render_html",
+    "render_markdown",
+]
 
 
 @dataclass(frozen=True)
@@ -438,11 +450,6 @@ def _html_figure(f: Figure) -> str:
 def render_html(r: Report) -> str:
     """One self-contained page (inline CSS, inline PNGs, one inline script)."""
     parts = [
-        "<!DOCTYPE html>",
-        "<html lang=\"en\"><head><meta charset=\"utf-8\">",
-        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
-        f"<title>{_h(r.title)}</title><style>{_CSS}</style></head><body>",
-        f"<h1>{_h(r.title)}</h1>",
         "<nav><a href=\"#summary\">Summary</a><a href=\"#profiles\">Profiles</a>"
         "<a href=\"#problems\">Problems</a><a href=\"#provenance\">Provenance</a></nav>",
         "<h2 id=\"summary\">Summary</h2>",
@@ -474,10 +481,75 @@ def render_html(r: Report) -> str:
         "conic solver, quasi-Newton) must agree, and NIST StRD problems are checked against the published "
         "certified values (LRE: log relative error, digits).</p>",
         _html_table(r.optima),
-        f"<script>{_SCRIPT}</script>",
-        "</body></html>",
     ]
-    return "\n".join(parts) + "\n"
+    return _shell(r.title, parts)
+
+
+def _shell(title: str, body: Sequence[str]) -> str:
+    """The page around ``body`` (HTML fragments): inline style, the image check script, nothing fetched."""
+    head = [
+        "<!DOCTYPE html>",
+        "<html lang=\"en\"><head><meta charset=\"utf-8\">",
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
+        f"<title>{_h(title)}</title><style>{_CSS}</style></head><body>",
+        f"<h1>{_h(title)}</h1>",
+    ]
+    return "\n".join([*head, *body, f"<script>{_SCRIPT}</script>", "</body></html>"]) + "\n"
+
+
+@dataclass(frozen=True)
+class Heading:
+    text: str
+
+
+def figure(name: str, caption: str, fig: Any) -> Figure:
+    """A matplotlib figure (from :mod:`benchsuite.figures`) as a page figure (PNG bytes; the figure is freed)."""
+    from benchsuite import figures
+
+    return Figure(name, caption, figures.png(fig))
+
+
+def page(title: str, blocks: Sequence[str | Heading | Figure | Table]) -> str:
+    """A self-contained page of the same kind as the run report, for the gate and compare commands.
+
+    ``blocks``: a ``str`` is a paragraph, :class:`Heading` a section heading,
+    :class:`Figure` an embedded PNG with its caption, :class:`Table` a table.
+    """
+    body = []
+    for b in blocks:
+        if isinstance(b, Heading):
+            body.append(f"<h2 id=\"{_h(_slug(b.text))}\">{_h(b.text)}</h2>")
+        elif isinstance(b, Figure):
+            body.append(_html_figure(b))
+        elif isinstance(b, Table):
+            body.append(_html_table(b))
+        else:
+            body.append(f"<p>{_h(b)}</p>")
+    return _shell(title, body)
+
+
+def compare_page(comparison: Any) -> str:
+    """The page of a :class:`benchsuite.compare.Comparison`: verdict, forest plot, per-case table, method."""
+    from benchsuite import figures
+
+    def ci(v: Any) -> str:
+        return "-" if v is None else f"{v[0]:.3f}-{v[1]:.3f}"
+
+    rows = tuple(
+        (c.instance, "-" if c.target is None else f"{c.target:.0e}", f"{c.iters_a if c.iters_a is not None else '-'}",
+         f"{c.iters_b if c.iters_b is not None else '-'}", _fmt(c.ratio, 4), ci(c.ci), c.note)
+        for c in comparison.cases)
+    blocks: list[str | Heading | Figure | Table] = [
+        f"A = {comparison.label_a}, B = {comparison.label_b}.",
+        comparison.summary() + ".",
+        figure("compare-forest", "Time ratio B / A per case with its 95 % interval (log scale; below 1: B faster); "
+               "the diamond is the geometric mean over cases and its interval.", figures.compare_figure(comparison)),
+        Heading("Cases"),
+        Table(("instance", "target", "iterations A", "iterations B", "ratio B/A", "95 % interval", "note"), rows),
+        Heading("Method"),
+        f"{comparison.method}; {comparison.repeats} replay pairs per case.",
+    ]
+    return page(f"benchsuite compare: {comparison.label_b} against {comparison.label_a}", blocks)
 
 
 # -- markdown ---------------------------------------------------------------------------------
