@@ -93,6 +93,16 @@ def png(fig: Figure, dpi: int = DPI) -> bytes:
     return buf.getvalue()
 
 
+def _marks(x: np.ndarray, n: int = 8) -> list[int]:
+    """Indices of about ``n`` points evenly spread on a log x axis (markers, not one per noisy point)."""
+    pos = np.asarray(x, dtype=float)
+    pos = pos[pos > 0]
+    if pos.size <= n:
+        return list(range(pos.size))
+    want = np.geomspace(pos[0], pos[-1], n)
+    return sorted({int(i) for i in np.clip(np.searchsorted(pos, want), 0, pos.size - 1)})
+
+
 def _targets(ax: Any, targets: Sequence[float]) -> None:
     for t in targets:
         ax.axhline(t, color="0.55", linestyle=":", linewidth=0.8, zorder=0)
@@ -156,7 +166,7 @@ def convergence_figure(
                 continue
             keep = band.x > 0  # log axis: iteration 0 / time 0 is the start point
             x, med = band.x[keep], band.median[keep]
-            drawn = ax.plot(x, med, label=c.rule, linewidth=1.4, markevery=0.12, markersize=4, **st.kw())[0]
+            drawn = ax.plot(x, med, label=c.rule, linewidth=1.4, markevery=_marks(x), markersize=4, **st.kw())[0]
             if band.seeds > 1:
                 ax.fill_between(x, band.lo[keep], band.hi[keep], color=st.color, alpha=0.18, linewidth=0)
             line = line or drawn
@@ -269,7 +279,7 @@ def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, titl
     for tr, st, lab in ((baseline, styles[0], labels[0]), (candidate, styles[1], labels[1])):
         x, y = trace_xy(tr, "iteration")
         keep = x > 0
-        ax.plot(x[keep], y[keep], label=lab, linewidth=1.4, markevery=0.12, markersize=4, **st.kw())
+        ax.plot(x[keep], y[keep], label=lab, linewidth=1.4, markevery=_marks(x[keep]), markersize=4, **st.kw())
     _targets(ax, targets)
     ax.set_xscale("log")
     k = first_divergence(baseline, candidate, rtol)
