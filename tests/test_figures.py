@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import math
 
 import numpy as np
@@ -89,7 +90,12 @@ def test_convergence_figure_draws_the_stored_traces() -> None:
     time_lines = [ln for ln in ax_s.get_lines() if ln.get_label() == "gd"]
     assert np.array_equal(time_lines[0].get_xdata(), [1e-3, 2e-3, 4e-3])  # only gd has replay times
     data = figures.png(fig)
-    assert data.startswith(PNG_MAGIC) and len(data) > 10_000
+    assert data.startswith(PNG_MAGIC)
+    from PIL import Image
+
+    with Image.open(io.BytesIO(data)) as im:  # the figure's size in inches times its dpi
+        assert im.size == (round(11.5 * figures.DPI), round(3.9 * figures.DPI))
+        assert len(im.getcolors(256) or ()) > 5  # drawn in several colours, not blank
 
 
 def test_profile_figures_step_at_the_hand_computed_values() -> None:
