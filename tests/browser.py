@@ -33,7 +33,8 @@ from typing import Any
 FLAGS = (
     "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
     "--disable-background-networking", "--disable-component-update", "--disable-sync",
-    "--disable-extensions", "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost",
+    "--disable-extensions", "--disable-dev-shm-usage",  # containers often have a tiny /dev/shm
+    "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost",
 )
 
 

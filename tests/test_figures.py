@@ -7,6 +7,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from benchsuite import figures
 from benchsuite.compare import CaseComparison, Comparison
@@ -35,6 +37,18 @@ def test_seed_band_by_hand() -> None:
     assert np.allclose(band.median, [1, 0.8, 0.8, 0.25, 0.1])
     assert np.allclose(band.lo, [1, 0.5, 0.25, 0.1, 0.0625])
     assert np.allclose(band.hi, [1, 1, 0.9, 0.9, 0.3])
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.lists(st.lists(st.floats(1e-12, 1.0), min_size=1, max_size=12), min_size=1, max_size=5))
+def test_seed_band_laws(measures: list[list[float]]) -> None:
+    """min <= median <= max everywhere; one seed gives back its own trace; x covers every seed's points."""
+    traces = [tr(list(range(len(m))), m) for m in measures]
+    band = seed_band(traces)
+    assert np.all(band.lo <= band.median) and np.all(band.median <= band.hi)
+    assert np.array_equal(band.x, np.arange(max(len(m) for m in measures)))
+    one = seed_band(traces[:1])
+    assert np.array_equal(one.median, measures[0]) and np.array_equal(one.lo, one.hi)
 
 
 def test_seed_band_on_seconds_skips_points_without_time() -> None:
