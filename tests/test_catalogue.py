@@ -174,6 +174,11 @@ BAD_CASES = [
     (entry(targets=[1e-4, 1e-2]), ["[x].targets", "strictly decreasing"]),
     (entry(targets=[1e-2, 0.0]), ["[x].targets", "> 0"]),
     (entry(targets=[1e-2, -1.0]), ["[x].targets", "> 0"]),
+    # every measure is 1 at the start: a target of 1 or more is met before the first step
+    (entry(targets=[1.0, 1e-2]), ["[x].targets", "> 0 and < 1", "got 1.0"]),
+    (entry(targets=[5, 1e-2]), ["[x].targets", "> 0 and < 1", "got 5"]),
+    ("# no instances yet\n", ["no [[instance]] table", "defines no instance"]),
+    ("instance = []\n", ["no [[instance]] table"]),
     (entry(tier="huge"), ["[x].tier", "unknown tier 'huge'"]),
     (entry(measure="speed"), ["[x].measure", "unknown measure 'speed'"]),
     (entry(x_tol=-1.0), ["[x].x_tol", "> 0"]),
@@ -263,13 +268,13 @@ def test_strd_bad_files(tmp_path: Path) -> None:
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.lists(st.floats(min_value=-1.0, max_value=1.0, allow_nan=False, allow_infinity=False), min_size=1, max_size=5),
+@given(st.lists(st.floats(min_value=-1.0, max_value=2.0, allow_nan=False, allow_infinity=False), min_size=1, max_size=5),
        st.integers(-3, 3))
 def test_targets_and_budget_accepted_exactly_when_valid(targets: list[float], budget: int) -> None:
-    """Law: an entry loads iff targets are > 0 and strictly decreasing and budget > 0."""
+    """Law: an entry loads iff targets are in (0, 1) and strictly decreasing and budget > 0."""
     import tempfile
 
-    valid = all(t > 0 for t in targets) and all(b < a for a, b in zip(targets, targets[1:])) and budget > 0
+    valid = all(0 < t < 1 for t in targets) and all(b < a for a, b in zip(targets, targets[1:])) and budget > 0
     with tempfile.TemporaryDirectory() as d:
         f = Path(d) / "t.toml"
         f.write_text(entry(targets=targets, budget=budget))
@@ -281,3 +286,30 @@ def test_targets_and_budget_accepted_exactly_when_valid(targets: list[float], bu
         else:
             assert valid
             assert cat["x"].targets == tuple(targets) and cat["x"].budget == budget
+
+
+def test_an_empty_catalogue_folder_is_one_line(tmp_path: Path) -> None:
+    (tmp_path / "empty").mkdir()
+    with pytest.raises(UserError, match=r"empty: no catalogue files \(\*\.toml\) in this folder$"):
+        load_catalogue([tmp_path / "empty"])
+
+
+def test_where_each_instance_came_from(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    cat = load_catalogue([write(tmp_path, GOOD)])
+    assert cat["q-small"].catalogue == str(tmp_path / "cat.toml") and not cat["q-small"].builtin
+    assert cat["quad-diag-kappa10-d10"].catalogue == "builtin" and cat["quad-diag-kappa10-d10"].builtin
+    monkeypatch.chdir(tmp_path)
+    assert load_catalogue(["cat.toml"])["q-small"].catalogue == "cat.toml"  # the path as given
+    assert instance_from_strd(STRD_DIR / "Misra1a.dat").catalogue == str(STRD_DIR / "Misra1a.dat")
+
+
+def test_selection_errors_name_what_the_caller_gave(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    cat = only_extra(tmp_path, GOOD, monkeypatch)
+    with pytest.raises(UserError, match=r"^--problems: unknown instance 'q-smal'"):
+        select(cat, "q-smal")  # the command line's default
+    with pytest.raises(UserError, match=r"^NAME_OR_PATH: unknown instance 'q-smal'; close matches: q-small$"):
+        select(cat, "q-smal", option="NAME_OR_PATH")
+    with pytest.raises(UserError, match=r"^problems='z\*': 'z\*' matches no instance$"):
+        select(cat, "z*", option="problems='z*'")
+    with pytest.raises(UserError, match=r"^tier='tiny': unknown tier 'tiny'"):
+        select(cat, tier="tiny", tier_option="tier='tiny'")
