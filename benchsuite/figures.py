@@ -308,33 +308,71 @@ def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, titl
 
 
 # -- compare: forest plot ---------------------------------------------------------------------
-def compare_figure(comparison: Comparison, *, title: str = "") -> Figure:
-    """Per case the time ratio B/A with its interval, and the overall geometric mean (a diamond)."""
-    cases = [c for c in comparison.cases if c.ratio is not None]
-    n = len(cases)
-    fig = _figure(7.5, 1.2 + 0.32 * (n + 2))
-    ax = fig.subplots()
+#: compare's two figures: Comparison / CaseComparison attribute -> panel title
+COMPARE_PANELS = (("per_step", "time per step"), ("to_target", "time to target"))
+
+
+def _forest(ax: Any, items: Sequence[tuple[str, Any]], pooled: Any, what: str) -> None:
+    """One forest panel: a row per (label, Change) with its interval, the pooled change as a diamond."""
+    n = len(items)
     ys = np.arange(n, 0, -1, dtype=float)
-    for y, c in zip(ys, cases):
-        lo, hi = c.ci if c.ci is not None else (c.ratio, c.ratio)
-        color = PALETTE[5] if c.significant and c.ratio > 1 else PALETTE[2] if c.significant else "0.35"
-        ax.errorbar([c.ratio], [y], xerr=[[c.ratio - lo], [hi - c.ratio]], fmt="s", color=color, capsize=3,
-                    markersize=5)
-    if comparison.ratio is not None:
-        lo, hi = comparison.ci if comparison.ci is not None else (comparison.ratio, comparison.ratio)
-        r = comparison.ratio
+    colours = {"higher": PALETTE[5], "lower": PALETTE[2]}  # slower: vermillion, faster: bluish green
+    for y, (_label, ch) in zip(ys, items):
+        iv = ch.interval
+        lo, hi = iv if iv is not None else (ch.ratio, ch.ratio)
+        ax.errorbar([ch.ratio], [y], xerr=[[ch.ratio - lo], [hi - ch.ratio]], fmt="s" if iv is not None else "o",
+                    color=colours.get(ch.direction, "0.35"), capsize=3, markersize=5,
+                    markerfacecolor="white" if iv is None else None)
+    if pooled is not None:
+        iv = pooled.interval
+        lo, hi = iv if iv is not None else (pooled.ratio, pooled.ratio)
+        r = pooled.ratio
         ax.fill([lo, r, hi, r], [-0.5, -0.25, -0.5, -0.75], color=PALETTE[0])
+        if iv is None:
+            ax.plot([r], [-0.5], marker="D", color=PALETTE[0])
     ax.axvline(1.0, color="0.2", linewidth=0.9)
-    ax.set_yticks(list(ys) + [-0.5], [c.instance for c in cases] + ["geometric mean"], fontsize=8)
+    ax.set_yticks(list(ys) + [-0.5], [label for label, _ in items] + ["geometric mean"], fontsize=8)
     ax.set_xscale("log")
-    ax.set_xlabel(f"time ratio B / A (log; < 1: B faster)   A = {comparison.label_a}, B = {comparison.label_b}")
     ax.set_ylim(-1.2, n + 0.8)
     ax.grid(True, axis="x", alpha=0.25)
-    ax.set_title(title or "Speed-up per case with 95 % interval; the diamond: geometric mean over cases",
-                 fontsize=10)
+    ax.set_xlabel(f"{what}: B / A (log; < 1: B faster)")
+
+
+def compare_figure(comparison: Comparison, *, title: str = "") -> Figure:
+    """Per case the time ratio B / A with its 95 % interval and the pooled geometric mean (a diamond):
+    one panel for time per step, one for time to target (the two are pooled separately).
+
+    A hollow marker has no interval (saved runs); colour says which way the
+    interval lies: vermillion above 1 (B slower), green below (B faster), grey
+    across 1 or unknown.
+    """
+    panels = []
+    for attr, what in COMPARE_PANELS:
+        items = [(c.instance, getattr(c, attr)) for c in comparison.cases if getattr(c, attr, None) is not None]
+        pooled = getattr(comparison, attr, None)
+        if items or pooled is not None:
+            panels.append((items, pooled, what))
+    from matplotlib.ticker import FuncFormatter
+
+    heights = [len(p[0]) + 2.5 for p in panels] or [1.0]
+    fig = _figure(8.0, 1.0 + 0.3 * sum(heights) + 0.7 * len(heights))
+    axes = fig.subplots(len(heights), 1, squeeze=False, gridspec_kw={"height_ratios": heights})[:, 0]
+    plain = FuncFormatter(lambda v, _pos: f"{v:g}")
+    for ax, (items, pooled, what) in zip(axes, panels):
+        _forest(ax, items, pooled, what)
+        ax.xaxis.set_major_formatter(plain)
+        ax.xaxis.set_minor_formatter(plain)
+        ax.tick_params(axis="x", which="minor", labelsize=7)
+    if not panels:
+        axes[0].text(0.5, 0.5, "no case could be timed on both sides", ha="center", va="center",
+                     transform=axes[0].transAxes)
+        axes[0].set_axis_off()
+    fig.suptitle(title or f"A = {comparison.label_a}, B = {comparison.label_b}: ratio per case with 95 % interval; "
+                          "diamond: geometric mean", fontsize=9)
     w, h = fig.get_size_inches()
-    width = max([len(c.instance) for c in cases] + [14])
-    fig.subplots_adjust(left=min(0.6, (0.3 + 0.075 * width) / w), right=1 - 0.25 / w, bottom=0.7 / h, top=1 - 0.45 / h)
+    width = max([len(c.instance) for c in comparison.cases] + [14])
+    fig.subplots_adjust(left=min(0.45, (0.3 + 0.075 * width) / w), right=1 - 0.25 / w, bottom=0.6 / h,
+                        top=1 - 0.45 / h, hspace=0.9 / (h / len(heights)))
     return fig
 
 

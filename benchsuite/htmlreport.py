@@ -529,65 +529,32 @@ def page(title: str, blocks: Sequence[str | Heading | Figure | Table]) -> str:
 
 
 def compare_page(comparison: Any) -> str:
-    """The page of a :class:`benchsuite.compare.Comparison`: verdict, forest plot, per-case table, method."""
+    """The page of a :class:`benchsuite.compare.Comparison`: summary, forest plots, per-case table, method."""
     from benchsuite import figures
 
-    def ci(v: Any) -> str:
-        return "-" if v is None else f"{v[0]:.3f}-{v[1]:.3f}"
+    def change(ch: Any) -> str:
+        if ch is None:
+            return "-"
+        iv = ch.interval
+        return f"{ch.ratio:.3f}" + ("" if iv is None else f" ({iv[0]:.3f}-{iv[1]:.3f})")
+
+    def count(k: Any) -> str:
+        return "-" if k is None else str(k)
 
     rows = tuple(
-        (c.instance, "-" if c.target is None else f"{c.target:.0e}", f"{c.iters_a if c.iters_a is not None else '-'}",
-         f"{c.iters_b if c.iters_b is not None else '-'}", _fmt(c.ratio, 4), ci(c.ci), c.note)
+        (c.instance, "-" if c.target is None else f"{c.target:.0e}", count(c.iters_a), count(c.iters_b),
+         change(getattr(c, "per_step", None)), change(getattr(c, "to_target", None)), c.note)
         for c in comparison.cases)
     blocks: list[str | Heading | Figure | Table] = [
         f"A = {comparison.label_a}, B = {comparison.label_b}.",
-        comparison.summary() + ".",
-        figure("compare-forest", "Time ratio B / A per case with its 95 % interval (log scale; below 1: B faster); "
-               "the diamond is the geometric mean over cases and its interval.", figures.compare_figure(comparison)),
+        *comparison.summary_lines(),
+        figure("compare-forest", "Time ratio B / A per case with its 95 % interval (log scale; below 1: B faster), "
+               "time per step and time to target pooled separately; the diamond is the geometric mean over cases "
+               "with its interval. Hollow markers: no interval.", figures.compare_figure(comparison)),
         Heading("Cases"),
-        Table(("instance", "target", "iterations A", "iterations B", "ratio B/A", "95 % interval", "note"), rows),
+        Table(("instance", "target", "iterations A", "iterations B", "time per step B/A (95 %)",
+               "time to target B/A (95 %)", "note"), rows),
         Heading("Method"),
-        f"{comparison.method}; {comparison.repeats} replay pairs per case.",
+        f"{comparison.method}.",
     ]
     return page(f"benchsuite compare: {comparison.label_b} against {comparison.label_a}", blocks)
-
-
-# -- markdown ---------------------------------------------------------------------------------
-def _md_cell(c: Any) -> str:
-    return str(c).replace("|", "\\|").replace("\n", " ")
-
-
-def _md_table(t: Table) -> str:
-    lines = ["| " + " | ".join(_md_cell(h) for h in t.headers) + " |",
-             "|" + "---|" * len(t.headers)]
-    lines += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in t.rows]
-    return "\n".join(lines)
-
-
-def render_markdown(r: Report, image_dir: str) -> tuple[str, dict[str, bytes]]:
-    """Markdown text and the PNG files it links (``image_dir``/<name>.png, relative to the markdown file).
-
-    The per-problem curves go in a folded ``<details>`` block so a pull-request
-    comment stays short.
-    """
-    files: dict[str, bytes] = {}
-
-    def img(f: Figure) -> str:
-        files[f"{f.name}.png"] = f.png
-        return f"![{_md_cell(f.caption)}]({image_dir}/{f.name}.png)\n\n*{f.caption}*"
-
-    out = [f"# {r.title}", "", *r.summary, "", *r.notes, "", _md_table(r.summary_table), "", "## Profiles", ""]
-    out += [*r.profile_notes, ""]
-    for f in r.profiles:
-        out += [img(f), ""]
-    out += ["## Problems", "", "<details><summary>curves and tables per problem</summary>", ""]
-    for p in r.problems:
-        out += [f"### {p.name}", "", f"_{p.heading}_", ""]
-        if p.figure is not None:
-            out += [img(p.figure), ""]
-        if p.note:
-            out += [p.note, ""]
-        out += [_md_table(p.table), ""]
-    out += ["</details>", "", "## Provenance", "", _md_table(Table(("what", "value"), r.provenance)), "",
-            "### Certified optima", "", _md_table(r.optima), ""]
-    return "\n".join(out), files

@@ -142,15 +142,21 @@ def test_gate_figure_marks_first_divergence() -> None:
 
 
 def test_compare_figure_forest() -> None:
-    def case(name: str, ratio: float | None, ci: tuple[float, float] | None) -> CaseComparison:
-        return CaseComparison(name, "reached", "reached", 1e-6, 10, 10, (1.0,), (ratio or 1.0,), ratio, ci, "")
+    from benchsuite.compare import Change
 
-    cmp_ = Comparison("gd", "nesterov", (case("a", 0.5, (0.4, 0.6)), case("b", 1.1, (0.9, 1.3)),
-                                         case("c", None, None)), 0.74, (0.6, 0.9), 5)
+    def case(name: str, step: Change | None, target: Change | None) -> CaseComparison:
+        return CaseComparison(name, "reached", "reached", 1e-6, 10, 10, (1.0,), (1.0,), step, target, "")
+
+    faster = Change(math.log(0.5), se=0.05, df=8)
+    slower = Change(math.log(1.2), se=0.01, df=8)
+    cmp_ = Comparison("gd", "nesterov", (case("a", faster, faster), case("b", slower, None), case("c", None, None)),
+                      per_step=Change(math.log(0.8), se=0.1, df=10, cases=2), to_target=None, pairs=5)
     fig = figures.compare_figure(cmp_)
-    ax = fig.axes[0]
-    labels = [t.get_text() for t in ax.get_yticklabels()]
-    assert labels == ["a", "b", "geometric mean"]  # c has no ratio: not drawn
-    diamond = ax.patches[0].get_xy()
-    assert min(diamond[:, 0]) == 0.6 and max(diamond[:, 0]) == 0.9
+    step_ax, target_ax = fig.axes[:2]
+    assert [t.get_text() for t in step_ax.get_yticklabels()] == ["a", "b", "geometric mean"]  # c: no figure
+    assert [t.get_text() for t in target_ax.get_yticklabels()] == ["a", "geometric mean"]
+    lo, hi = cmp_.per_step.interval
+    diamond = step_ax.patches[0].get_xy()
+    assert np.isclose(min(diamond[:, 0]), lo) and np.isclose(max(diamond[:, 0]), hi)
+    assert not target_ax.patches  # nothing pooled to target: no diamond drawn
     assert figures.png(fig).startswith(PNG_MAGIC)

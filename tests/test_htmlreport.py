@@ -145,13 +145,16 @@ def test_browser_check_catches_a_broken_page(tmp_path: Path) -> None:
 
 
 def test_compare_page_is_self_contained_with_its_forest_plot() -> None:
-    from benchsuite.compare import CaseComparison, Comparison
+    import math
+
+    from benchsuite.compare import CaseComparison, Change, Comparison
     from benchsuite.htmlreport import compare_page
 
-    cases = (CaseComparison("quad-a", "reached", "reached", 1e-6, 40, 20, (1.0, 1.1), (0.5, 0.6), 0.52, (0.45, 0.6), ""),
+    step = Change(math.log(0.52), se=0.0)  # se 0: the interval is the point itself
+    cases = (CaseComparison("quad-a", "reached", "reached", 1e-6, 40, 20, (1.0, 1.1), (0.5, 0.6), step, step, ""),
              CaseComparison("quad-b", "reached", "budget", None, 40, None, (), (), None, None, "B met no target"))
-    text = compare_page(Comparison("gd", "nesterov", cases, 0.52, (0.45, 0.6), 5))
+    text = compare_page(Comparison("gd", "nesterov", cases, step, None, 5))
     assert text.count("<img ") == 1 and "geometric mean" in text and "B met no target" in text
-    assert "0.450-0.600" in text  # the interval as given, three decimals
+    assert "0.520 (0.520-0.520)" in text  # the ratio and its interval, three decimals
     refs = re.findall(r'(?:src|href)\s*=\s*"([^"]*)"', text)
     assert all(r.startswith(("data:image/png;base64,", "#")) for r in refs)

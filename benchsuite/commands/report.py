@@ -43,14 +43,12 @@ def run(args: argparse.Namespace) -> int:
 
     report = build_report(run_, progress=progress)
     html_path = args.html
-    written_files: list[Path] = []
     if html_path is None and args.markdown is None:
         html_path = str(run_.path / "report.html")
     try:
         if html_path is not None:
             page = render_html(report)
             atomic_write_text(html_path, page)
-            written_files.append(Path(html_path))
             print(f"{html_path}: {len(page.encode()) / 1e6:.2f} MB, {len(report.profiles)} profile figures, "
                   f"{sum(p.figure is not None for p in report.problems)} problem figures")
         if args.markdown is not None:
@@ -59,23 +57,11 @@ def run(args: argparse.Namespace) -> int:
             text, files = render_markdown(report, folder.name)
             for name, data in files.items():
                 atomic_write_bytes(folder / name, data)
-                written_files.append(folder / name)
             atomic_write_text(md, text)
-            written_files.append(md)
             print(f"{md}: markdown, {len(files)} PNGs in {folder}")
     except OSError as exc:
         raise UserError(f"cannot write the report: {exc}") from None
-    for written in written_files:
-        _readable(written)
     if not args.quiet:
         print(f"benchsuite: report of run {run_.run_id} drawn in {time.perf_counter() - start:.1f} s", file=sys.stderr)
     return 0
 
-
-def _readable(path: object) -> None:
-    """The atomic writer's temporary file is private (0600); a report is meant to be shared: 0644 less the umask."""
-    import os
-
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(path, 0o644 & ~umask)  # type: ignore[arg-type]
