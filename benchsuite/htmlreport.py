@@ -558,3 +558,44 @@ def compare_page(comparison: Any) -> str:
         f"{comparison.method}.",
     ]
     return page(f"benchsuite compare: {comparison.label_b} against {comparison.label_a}", blocks)
+
+
+# -- markdown ---------------------------------------------------------------------------------
+def _md_cell(c: Any) -> str:
+    return str(c).replace("|", "\\|").replace("\n", " ")
+
+
+def _md_table(t: Table) -> str:
+    lines = ["| " + " | ".join(_md_cell(h) for h in t.headers) + " |",
+             "|" + "---|" * len(t.headers)]
+    lines += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in t.rows]
+    return "\n".join(lines)
+
+
+def render_markdown(r: Report, image_dir: str) -> tuple[str, dict[str, bytes]]:
+    """Markdown text and the PNG files it links (``image_dir``/<name>.png, relative to the markdown file).
+
+    The per-problem curves go in a folded ``<details>`` block so a pull-request
+    comment stays short.
+    """
+    files: dict[str, bytes] = {}
+
+    def img(f: Figure) -> str:
+        files[f"{f.name}.png"] = f.png
+        return f"![{_md_cell(f.caption)}]({image_dir}/{f.name}.png)\n\n*{f.caption}*"
+
+    out = [f"# {r.title}", "", *r.summary, "", *r.notes, "", _md_table(r.summary_table), "", "## Profiles", ""]
+    out += [*r.profile_notes, ""]
+    for f in r.profiles:
+        out += [img(f), ""]
+    out += ["## Problems", "", "<details><summary>curves and tables per problem</summary>", ""]
+    for p in r.problems:
+        out += [f"### {p.name}", "", f"_{p.heading}_", ""]
+        if p.figure is not None:
+            out += [img(p.figure), ""]
+        if p.note:
+            out += [p.note, ""]
+        out += [_md_table(p.table), ""]
+    out += ["</details>", "", "## Provenance", "", _md_table(Table(("what", "value"), r.provenance)), "",
+            "### Certified optima", "", _md_table(r.optima), ""]
+    return "\n".join(out), files
