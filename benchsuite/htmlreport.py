@@ -202,6 +202,18 @@ def _summary(run: StoredRun) -> tuple[tuple[str, ...], Table]:
     return tuple(sentences), table
 
 
+def profile_rows(frame: Any, selected: Sequence[Any]) -> Any:
+    """The rows a sweep's profiles use: per problem only the selected grid point of each rule, under the
+    rule's base label (``selected``: meta.json's sweep selection), so a rule is one column of the profile."""
+    chosen = {s["case"]: s["group"].split(" | ", 1)[1] for s in selected
+              if isinstance(s, dict) and "case" in s and " | " in str(s.get("group"))}
+    if not chosen:
+        return frame
+    out = frame[frame["case"].isin(chosen)].copy()
+    out["rule"] = out["case"].map(chosen)
+    return out
+
+
 def _profiles(run: StoredRun, dims: dict[str, int], draw: Any) -> tuple[list[Figure], list[str]]:
     from benchsuite import figures
     from benchsuite.profiles import cost_matrices, timed
@@ -211,6 +223,10 @@ def _profiles(run: StoredRun, dims: dict[str, int], draw: Any) -> tuple[list[Fig
     out: list[Figure] = []
     if frame.empty or not frame["target"].map(_is_num).all():
         return out, ["No profiles: the run stored no results table with targets."]
+    if run.meta.get("selected"):
+        frame = profile_rows(frame, run.meta["selected"])
+        notes.append("This run swept a hyperparameter: the profiles compare each rule at the value selected per "
+                     "problem; the curves below show every grid point.")
     rules = sorted(frame["rule"].astype(str).unique())
     if len(rules) < 2:
         notes.append("Profiles compare rules; this run has one rule, so they show what it solved.")

@@ -158,3 +158,16 @@ def test_compare_page_is_self_contained_with_its_forest_plot() -> None:
     assert "0.520 (0.520-0.520)" in text  # the ratio and its interval, three decimals
     refs = re.findall(r'(?:src|href)\s*=\s*"([^"]*)"', text)
     assert all(r.startswith(("data:image/png;base64,", "#")) for r in refs)
+
+
+def test_sweep_profiles_use_the_selected_point_under_the_base_label() -> None:
+    import pandas as pd
+
+    from benchsuite.htmlreport import profile_rows
+
+    frame = pd.DataFrame({"case": ["a|gd(lr=0.1)", "a|gd(lr=1)", "b|gd(lr=0.1)", "b|gd(lr=1)"],
+                          "rule": ["gd(lr=0.1)", "gd(lr=1)", "gd(lr=0.1)", "gd(lr=1)"], "iterations": [5, 3, 9, 40]})
+    selected = [{"group": "a | gd", "case": "a|gd(lr=1)"}, {"group": "b | gd", "case": "b|gd(lr=0.1)"}]
+    rows = profile_rows(frame, selected)
+    assert rows["case"].tolist() == ["a|gd(lr=1)", "b|gd(lr=0.1)"] and set(rows["rule"]) == {"gd"}
+    assert profile_rows(frame, []) is frame
