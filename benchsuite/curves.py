@@ -23,7 +23,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["AXES", "Band", "bound_points", "first_divergence", "seed_band", "trace_xy"]
+__all__ = ["AXES", "Band", "bound_points", "first_divergence", "seed_band", "trace_from_checkpoints", "trace_xy"]
 
 #: axis name -> Trace field
 AXES = {"iteration": "iteration", "grad_calls": "grad_calls", "seconds": "seconds"}
@@ -123,3 +123,16 @@ def first_divergence(a: Any, b: Any, rtol: float = 1e-9) -> int | None:
         past = longer[longer > min(end_a, end_b)]
         return int(past.min())
     return None
+
+
+def trace_from_checkpoints(checkpoints: Sequence[int], fingerprint: Sequence[float]) -> Any:
+    """A :class:`~benchsuite.cases.Trace` of the measure at a baseline's checkpoints (what a baseline file
+    keeps), so a baseline can be drawn and compared like a stored trace. Iteration 0 is not added."""
+    from benchsuite.cases import Trace
+
+    k = np.asarray(checkpoints, dtype=np.int64)
+    m = np.asarray(fingerprint, dtype=np.float64)
+    if k.shape != m.shape:
+        raise ValueError(f"{k.size} checkpoints but {m.size} fingerprint values")
+    nan = np.full(k.shape, np.nan)
+    return Trace(k, m, nan, k.copy(), nan.copy())

@@ -279,8 +279,15 @@ def data_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mapping[str, 
 # -- gate: baseline against candidate ---------------------------------------------------------
 def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, title: str,
                 labels: tuple[str, str] = ("baseline", "candidate"), rtol: float = 1e-9,
-                measure: str = "measure") -> Figure:
-    """Two traces of one case overlaid, the first iteration where they part marked (``rtol`` relative)."""
+                measure: str = "measure", divergence: int | None | str = "compute") -> Figure:
+    """Two traces of one case overlaid, the first iteration where they part marked.
+
+    ``divergence``: the iteration to mark as the gate judged it (e.g. from its
+    round-off envelope; None: no divergence), or ``"compute"`` for
+    :func:`benchsuite.curves.first_divergence` at relative tolerance ``rtol``.
+    A baseline file's checkpoints become a trace with
+    :func:`benchsuite.curves.trace_from_checkpoints`.
+    """
     fig = _figure(7.5, 3.8)
     ax = fig.subplots()
     styles = (Style(PALETTE[0], "-", "o"), Style(PALETTE[5], "-.", "s"))
@@ -290,13 +297,13 @@ def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, titl
         ax.plot(x[keep], y[keep], label=lab, linewidth=1.4, markevery=_marks(x[keep]), markersize=4, **st.kw())
     _targets(ax, targets)
     ax.set_xscale("log")
-    k = first_divergence(baseline, candidate, rtol)
+    k = first_divergence(baseline, candidate, rtol) if divergence == "compute" else divergence
     if k is not None and k > 0:
         ax.axvline(k, color="0.2", linestyle=BOUND_STYLE, linewidth=1.0)
         ax.annotate(f"first divergence: iteration {k}", xy=(k, 0.97), xycoords=("data", "axes fraction"),
                     ha="left", va="top", fontsize=8, xytext=(4, 0), textcoords="offset points")
     else:
-        ax.text(0.02, 0.04, "identical at every recorded iteration" if k is None else "differ from the start",
+        ax.text(0.02, 0.04, "no divergence at the recorded iterations" if k is None else "differ from the start",
                 transform=ax.transAxes, fontsize=8)
     ax.set_xlabel("iterations (log)")
     ax.set_ylabel(measure)

@@ -139,6 +139,16 @@ def test_gate_figure_marks_first_divergence() -> None:
     assert len(marks) == 1 and list(marks[0].get_xdata()) == [3, 3]
     assert any("iteration 3" in t.get_text() for t in fig.axes[0].texts)
     assert figures.png(fig).startswith(PNG_MAGIC)
+    # a baseline file keeps the measure at its checkpoints; the gate may pass its own judgement
+    from benchsuite.curves import trace_from_checkpoints
+
+    stored = trace_from_checkpoints([1, 2, 4], [0.5, 0.25, 0.0625])
+    assert first_divergence(stored, base) is None  # equal at the common iterations 1, 2, 4 and same end
+    fig = figures.gate_figure(stored, cand, [0.1], title="q", divergence=None)
+    assert not [ln for ln in fig.axes[0].get_lines() if ln.get_linestyle() == "--"]
+    assert any("no divergence" in t.get_text() for t in fig.axes[0].texts)
+    with pytest.raises(ValueError, match="checkpoints"):
+        trace_from_checkpoints([1, 2], [0.5])
 
 
 def test_compare_figure_forest() -> None:
