@@ -300,8 +300,9 @@ def gate_figure(baseline: Any, candidate: Any, targets: Sequence[float], *, titl
     k = first_divergence(baseline, candidate, rtol) if divergence == "compute" else divergence
     if k is not None and k > 0:
         ax.axvline(k, color="0.2", linestyle=BOUND_STYLE, linewidth=1.0)
-        ax.annotate(f"first divergence: iteration {k}", xy=(k, 0.97), xycoords=("data", "axes fraction"),
-                    ha="left", va="top", fontsize=8, xytext=(4, 0), textcoords="offset points")
+        ax.annotate(f"first divergence: iteration {k}", xy=(k, 0.03), xycoords=("data", "axes fraction"),
+                    ha="left", va="bottom", fontsize=8, xytext=(4, 0), textcoords="offset points",
+                    bbox={"boxstyle": "round,pad=0.2", "facecolor": "white", "edgecolor": "none", "alpha": 0.8})
     else:
         ax.text(0.02, 0.04, "no divergence at the recorded iterations" if k is None else "differ from the start",
                 transform=ax.transAxes, fontsize=8)
