@@ -235,7 +235,8 @@ def _profiles(run: StoredRun, dims: dict[str, int], draw: Any) -> tuple[list[Fig
     out.append(draw("profile-iterations", figures.performance_profile_figure(it, styles=styles),
                     "Performance profiles in iterations (Dolan & Moré 2002). For each target: the fraction of "
                     "problems on which a rule needs at most tau times the iterations of the best rule; a "
-                    "failure to meet the target counts as infinity. Cost per problem: median over seeds."))
+                    "failure to meet the target counts as infinity. Cost: the first iteration at which the measure meets the "
+                    "target (median over seeds; a seed that never meets it counts as infinity)."))
     tm = cost_matrices(frame, "time", dims)
     if any(timed(m) for m in tm):
         out.append(draw("profile-time", figures.performance_profile_figure(
