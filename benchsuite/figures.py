@@ -48,6 +48,9 @@ PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#0
 LINESTYLES = ("-", "-.", ":", (0, (5, 1, 1, 1, 1, 1)))
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*", "<", ">", "h")
 BOUND_STYLE = "--"
+#: convergence axes stop this far below the tightest target (six decades: room to see a curve go
+#: past it, without 1e-30 round-off tails squeezing the targets into a corner)
+FLOOR_BELOW_TIGHTEST = 1e-6
 DPI = 90
 
 
@@ -156,21 +159,25 @@ def convergence_figure(
     max (:func:`benchsuite.curves.seed_band`). Targets are dotted guides; a
     rule's theory bound is a dashed line through (bound iterations, target)
     points. The right panel uses the replay's wall-clock positions; a rule
-    without them is left out there.
+    without them is left out there, and with no replay times at all (a run
+    with ``--no-timing``) there is only the left panel.
     """
     styles = styles or rule_styles([c.rule for c in curves])
-    fig = _figure(11.5, 3.9)
-    ax_it, ax_s = fig.subplots(1, 2)
+    timed = any(seed_band(c.traces, "seconds") is not None for c in curves)
+    fig = _figure(11.5 if timed else 7.5, 3.9)
+    if timed:
+        ax_it, ax_s = fig.subplots(1, 2)
+        panels = ((ax_it, "iteration"), (ax_s, "seconds"))
+    else:
+        ax_it = fig.subplots()
+        panels = ((ax_it, "iteration"),)
     handles, labels = [], []
-    missing_time = []
     for c in curves:
         st = styles[c.rule]
         line = None
-        for ax, axis in ((ax_it, "iteration"), (ax_s, "seconds")):
+        for ax, axis in panels:
             band = seed_band(c.traces, axis)
             if band is None:
-                if axis == "seconds":
-                    missing_time.append(c.rule)
                 continue
             keep = band.x > 0  # log axis: iteration 0 / time 0 is the start point
             x, med = band.x[keep], band.median[keep]
@@ -187,14 +194,16 @@ def convergence_figure(
             b = ax_it.plot(ks, ts, linestyle=BOUND_STYLE, color=st.color, marker="x", linewidth=1.0, markersize=5)[0]
             handles.append(b)
             labels.append(f"{c.rule}: theory bound")
-    for ax, xlabel in ((ax_it, "iterations (log)"), (ax_s, "seconds, timing replay (log)")):
+    xlabels = {"iteration": "iterations (log)", "seconds": "seconds, timing replay (log)"}
+    floor = min(targets) * FLOOR_BELOW_TIGHTEST if targets else None
+    for ax, axis in panels:
         _targets(ax, targets)
+        if floor is not None and ax.get_ylim()[0] < floor:
+            ax.set_ylim(bottom=floor)  # a curve going lower leaves through the bottom edge
         ax.set_xscale("log")
-        ax.set_xlabel(xlabel)
+        ax.set_xlabel(xlabels[axis] if timed else "iterations (log); no replay times recorded")
         ax.set_ylabel(measure)
         ax.grid(True, which="major", alpha=0.25)
-    if missing_time and len(missing_time) == len(curves):
-        ax_s.text(0.5, 0.5, "no replay times recorded", transform=ax_s.transAxes, ha="center", va="center")
     fig.suptitle(title, fontsize=10)
     _margins(fig, legend=True)
     _legend(fig, handles, labels)

@@ -288,8 +288,8 @@ def _problem_sections(run: StoredRun, draw: Any, traces_ok: bool) -> list[Proble
                 caption = (f"{pname}: measure against iterations and against replayed seconds"
                            + (f", median over {seeds} seeds with min..max band (a seed that stopped keeps its final "
                               "measure)" if seeds > 1 else "")
-                           + ". Dotted: targets. A measure of 0 or below (the optimum to the last bit) has no "
-                           "place on the log axis and is not drawn."
+                           + ". Dotted: targets. The axis stops six decades below the tightest target; a measure of 0 "
+                           "or below (the optimum to the last bit) has no place on the log axis and is not drawn."
                            + (" Dashed: iterations the theory bound guarantees for each target ("
                               + "; ".join(bounds) + ")." if bounds else ""))
                 fig = draw(f"curves-{_slug(pname)}", figures.convergence_figure(

@@ -170,3 +170,17 @@ def test_compare_figure_forest() -> None:
     assert np.isclose(min(diamond[:, 0]), lo) and np.isclose(max(diamond[:, 0]), hi)
     assert not target_ax.patches  # nothing pooled to target: no diamond drawn
     assert figures.png(fig).startswith(PNG_MAGIC)
+
+
+def test_convergence_figure_without_replay_times_has_one_panel() -> None:
+    fig = figures.convergence_figure([figures.RuleCurves("gd", (tr([0, 1, 2], [1.0, 0.5, 0.2]),))], [0.3],
+                                     title="untimed")
+    assert len(fig.axes) == 1 and "no replay times" in fig.axes[0].get_xlabel()
+
+
+def test_convergence_axis_stops_six_decades_below_the_tightest_target() -> None:
+    deep = tr([0, 1, 2, 3], [1.0, 1e-3, 1e-20, 1e-30])
+    fig = figures.convergence_figure([figures.RuleCurves("gd", (deep,))], [1e-2, 1e-8], title="deep")
+    assert np.isclose(fig.axes[0].get_ylim()[0], 1e-14)
+    line = [ln for ln in fig.axes[0].get_lines() if ln.get_label() == "gd"][0]
+    assert np.array_equal(line.get_ydata(), [1e-3, 1e-20, 1e-30])  # the data is all there; the view is cut
