@@ -93,6 +93,8 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "left_at",
     "theory_bound",
     "bound_violated",
+    "theory_lower",
+    "below_lower",
     "budget",
     "selected",
 )
@@ -283,6 +285,8 @@ _SQL_TYPES = {
     "iterations_run": "INTEGER",
     "theory_bound": "INTEGER",
     "bound_violated": "INTEGER",
+    "theory_lower": "INTEGER",
+    "below_lower": "INTEGER",
     "replace": "INTEGER",
     "budget": "INTEGER",
     "selected": "INTEGER",

@@ -313,3 +313,62 @@ def test_selection_errors_name_what_the_caller_gave(tmp_path: Path, monkeypatch:
         select(cat, "z*", option="problems='z*'")
     with pytest.raises(UserError, match=r"^tier='tiny': unknown tier 'tiny'"):
         select(cat, tier="tiny", tier_option="tier='tiny'")
+
+
+# -- x_tol against each family's stated rule (problems/*.toml headers) ----------------------
+#: families whose header states x_tol >= sqrt(kappa t_min) (measure subopt), from
+#: mu/2 ||e||^2 <= f - f* <= t (f0 - f*) <= t L/2 ||e0||^2 (closed form); for measure dist the
+#: rule is t_min itself, for gradnorm kappa t_min (mu ||e|| <= ||g||, ||g0|| <= L ||e0||)
+KAPPA_RULE = frozenset({"quadratic", "least_squares", "ridge", "logistic", "softmax", "huber"})
+#: non-convex (or mu = 0) families whose header states the local rule from the Hessian at x*:
+#: ||x - x*|| ~ sqrt(2 t (f0 - f*) / lambda_min(H*)), relative to ||x0 - x*|| (second-order model)
+LOCAL_RULE = frozenset({"rosenbrock", "huber"})
+#: families whose x_tol is measured (header: gradient-descent runs, distance quoted per entry,
+#: a factor 2-3 over it), or, for Longley, sqrt(kappa t) > 1 gives no distance claim at all
+MEASURED = frozenset({"mgh", "nist_strd", "longley"})
+
+
+def _x_tol_rule(inst: Instance) -> tuple[float, str] | None:
+    """The distance the family's rule allows after the tightest target, and which rule (None: measured)."""
+    import math
+
+    import numpy as np
+
+    from benchsuite.optimum import certified_optimum
+
+    if inst.family in MEASURED:
+        return None
+    problem = inst.build()
+    c = problem.constants()
+    t = min(inst.targets)
+    if inst.family in KAPPA_RULE and c.L and c.mu and c.mu > 0:
+        kappa = c.L / c.mu
+        return {"subopt": math.sqrt(kappa * t), "dist": t, "gradnorm": kappa * t}[inst.measure], "kappa"
+    assert inst.family in LOCAL_RULE and inst.measure == "subopt", inst.name
+    opt = certified_optimum(inst)  # the committed reference cache
+    xs = np.asarray(opt.x_star, dtype=np.float64)
+    H = np.array([problem.hessp(xs, e) for e in np.eye(problem.dim)])
+    lam_min = float(np.linalg.eigvalsh(0.5 * (H + H.T))[0])
+    x0 = problem.initial_point().astype(np.float64)
+    return math.sqrt(2 * t * (problem.value(x0) - opt.f_star) / lam_min) / float(np.linalg.norm(x0 - xs)), "local"
+
+
+def test_every_family_states_an_x_tol_rule() -> None:
+    families = {i.family for i in load_catalogue().values() if i.source.endswith(".toml")}
+    assert families <= KAPPA_RULE | LOCAL_RULE | MEASURED, families - (KAPPA_RULE | LOCAL_RULE | MEASURED)
+
+
+@pytest.mark.parametrize("name", sorted(n for n, i in load_catalogue().items() if i.family not in MEASURED))
+def test_x_tol_follows_the_family_rule(name: str) -> None:
+    inst = load_catalogue()[name]
+    got = _x_tol_rule(inst)
+    assert got is not None
+    rule, kind = got
+    assert 0 < rule < 1
+    # never tighter than the rule: a correct rule that meets t_min may end anywhere within it
+    # (1e-9: the rule is rounded up to two digits in the files, never down)
+    assert inst.x_tol >= rule * (1 - 1e-9), (name, inst.x_tol, rule)
+    if kind == "kappa":
+        # and not much looser (x_tol is the rule rounded up, at most 2x): a looser one lets a
+        # rule that stops far from x* through the gate's distance check
+        assert inst.x_tol <= 2 * rule, (name, inst.x_tol, rule)

@@ -175,7 +175,7 @@ def test_table_marks_a_count_above_its_bound() -> None:
     o = SeedOutcome(0, "reached", (5, 50, 60, 70), (5, 50, 60, 70), (None,) * 4, 1e-9, 1e-4, (), 70)
     r = CaseResult(Case(inst, parse_rule("gd")), {"lr": 1.0}, (o,), (10, 20, 80, 90), "reached")
     text = format_results([r])
-    assert "50 (<=20!)" in text and "5 (<=10)" in text and "above its published bound" in text
+    assert "50 (<=20 exceeded)" in text and "5 (<=10)" in text and "above its published bound" in text
 
 
 def test_impossible_instance_sizes_stop_the_run_before_any_work(tmp_path: Path, capsys) -> None:
@@ -497,3 +497,17 @@ def test_run_cli_takes_per_rule_hyperparameters_horizon_and_notes(tmp_path) -> N
     bad = subprocess.run([sys.executable, "-m", "benchsuite", "run", "--horizon", "ten", "--out", str(tmp_path / "o2")],
                          capture_output=True, text=True, timeout=120)
     assert bad.returncode == 2 and "--horizon" in bad.stderr and "Traceback" not in bad.stderr
+
+
+def test_table_marks_a_count_below_the_lower_bound() -> None:
+    from benchsuite.commands.run import format_results
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, CaseResult, SeedOutcome
+
+    inst = load_catalogue()["quad-diag-kappa10-d10"]
+    o = SeedOutcome(0, "reached", (5, 50, 60, 70), (5, 50, 60, 70), (None,) * 4, 1e-9, 1e-4, (), 70)
+    r = CaseResult(Case(inst, parse_rule("gd")), {"lr": 1.0}, (o,), (None,) * 4, "reached",
+                   theory_lower=(3, 55, 55, 60))
+    assert r.below_lower() == (False, True, False, False)
+    text = format_results([r])
+    assert "50 (below the lower bound 55)" in text and "5 (" not in text and "no gradient-span" in text

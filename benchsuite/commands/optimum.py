@@ -42,7 +42,7 @@ def _instances(args: argparse.Namespace) -> list[Any]:
     target = args.target.strip()
     if target.lower().endswith(".dat") or Path(target).is_file():
         return [instance_from_strd(target, start=args.start)]
-    return select(load_catalogue(args.catalogue), target, tier=None)
+    return select(load_catalogue(args.catalogue), target, tier=None, option="NAME_OR_PATH")
 
 
 def _f(v: float | None) -> float | None:

@@ -2,7 +2,8 @@
 
 With no arguments: every built-in rule on the small tier, a readable table
 per instance x rule (status, iterations to each target with the theory bound
-beside it -- ``!`` marks a measured count above its bound --, time per step,
+beside it -- "exceeded" marks a measured count above its bound, "below the lower bound" one
+that no gradient-span method can achieve --, time per step,
 time to the tightest target), the run stored under ``./results/runs/<id>/``
 (created when missing; ``--out`` elsewhere) and appended to
 ``./results/history.sqlite``.
@@ -243,7 +244,10 @@ def _cell(result: Any, j: int) -> str:
         text += f" {len(got)}/{len(ks)}"
     b = result.theory_bound[j] if j < len(result.theory_bound) else None
     if b is not None:
-        text += f" (<={b}{'!' if result.bound_violated()[j] else ''})"
+        text += f" (<={b}{' exceeded' if result.bound_violated()[j] else ''})"
+    lo = result.theory_lower[j] if j < len(result.theory_lower) else None
+    if lo is not None and result.below_lower()[j]:
+        text += f" (below the lower bound {lo})"
     return text
 
 
@@ -333,7 +337,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
             continue
         by_inst.setdefault(r.case.instance.name, []).append(r)
     problems: list[str] = []
-    violated = False
+    violated = impossible = False
     for name, rs in by_inst.items():
         c = rs[0].case
         targets = c.run_targets
@@ -344,6 +348,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
         rows = [head]
         for r in rs:
             violated = violated or any(r.bound_violated())
+            impossible = impossible or any(r.below_lower())
             label = r.case.rule.label
             if chosen:
                 label = r.case.rule.name + "(" + ", ".join(f"{k}={v:.3g}" if isinstance(v, float) else f"{k}={v}"
@@ -361,7 +366,10 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
     if len(by_inst) > 1:
         lines.extend(_summary(by_inst, lambda r: base_label.get(r.case.key(), r.case.rule.label)))
     if violated:
-        lines.append("! a measured count above its published bound: a bug in the rule, the constants or the runner")
+        lines.append("exceeded: a measured count above its published bound: a bug in the rule, the constants or the runner")
+    if impossible:
+        lines.append("below the lower bound: fewer iterations than conjugate gradients needs, which no gradient-span "
+                     "method can do: the measurement, the oracle or the optimum is wrong")
     if problems:
         lines.append("problems:")
         lines.extend("  " + p for p in problems)
