@@ -8,7 +8,8 @@ so nothing global (an interactive backend, a figure registry) is touched.
 Readable without colour: rules get the Okabe-Ito colour-blind-safe palette
 *and* a line style and a marker, assigned in one place (:func:`rule_styles`)
 so a rule looks the same in every figure. Dashed lines are reserved for
-theory bounds, dotted grey lines for targets.
+theory bounds (long dashes in dark grey: the lower bound of any
+gradient-span method), dotted grey lines for targets.
 """
 
 from __future__ import annotations
@@ -48,6 +49,8 @@ PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#0
 LINESTYLES = ("-", "-.", ":", (0, (5, 1, 1, 1, 1, 1)))
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*", "<", ">", "h")
 BOUND_STYLE = "--"
+#: the lower bound on iterations (no rule of the gradient-span kind can be left of it)
+LOWER_STYLE = (0, (8, 3))
 #: convergence axes stop this far below the tightest target (six decades: room to see a curve go
 #: past it, without 1e-30 round-off tails squeezing the targets into a corner)
 FLOOR_BELOW_TIGHTEST = 1e-6
@@ -143,6 +146,8 @@ class RuleCurves:
     traces: tuple[Any, ...]  # one Trace per seed
     theory_bound: tuple[int | None, ...] = ()
     bound_source: str = ""
+    #: per target, the fewest iterations any gradient-span method can need (the instance's, same for every rule)
+    theory_lower: tuple[int | None, ...] = ()
 
 
 def convergence_figure(
@@ -194,6 +199,12 @@ def convergence_figure(
             b = ax_it.plot(ks, ts, linestyle=BOUND_STYLE, color=st.color, marker="x", linewidth=1.0, markersize=5)[0]
             handles.append(b)
             labels.append(f"{c.rule}: theory bound")
+    lower = next((c.theory_lower for c in curves if bound_points(c.theory_lower, targets)), ())
+    if lower:
+        ks, ts = zip(*bound_points(lower, targets))
+        lo = ax_it.plot(ks, ts, linestyle=LOWER_STYLE, color="0.25", marker="+", linewidth=1.0, markersize=7)[0]
+        handles.append(lo)
+        labels.append("lower bound (any gradient-span method)")
     xlabels = {"iteration": "iterations (log)", "seconds": "seconds, timing replay (log)"}
     floor = min(targets) * FLOOR_BELOW_TIGHTEST if targets else None
     for ax, axis in panels:

@@ -130,7 +130,9 @@ def _targets_of(group: Any) -> list[float]:
     return [float(t) for t in g["target"]]
 
 
-def _iter_cell(group: Any, j: int, bound: Any) -> str:
+def _iter_cell(group: Any, j: int, bound: Any, lower: Any = None) -> str:
+    """Iterations to target j (median over seeds), the bounds beside it: ``(>= lower, <= bound)``;
+    ``!`` marks a count outside them (above the guarantee, or below what any gradient-span method can do)."""
     sub = group[group["target_index"] == j]
     ks = [float(k) for k in sub["iterations"] if _is_num(k)]
     if not ks:
@@ -139,9 +141,16 @@ def _iter_cell(group: Any, j: int, bound: Any) -> str:
         text = str(int(ks[0]))
     else:
         text = f"{statistics.median(ks):g} ({len(ks)}/{len(sub)} seeds)"
+    limits = []
+    flag = ""
+    if _is_num(lower):
+        limits.append(f">= {int(float(lower))}")
+        flag = " !" if ks and min(ks) < float(lower) else flag
     if _is_num(bound):
-        flag = " !" if ks and max(ks) > float(bound) else ""
-        text += f" (<= {int(float(bound))}){flag}"
+        limits.append(f"<= {int(float(bound))}")
+        flag = " !" if ks and max(ks) > float(bound) else flag
+    if limits:
+        text += f" ({', '.join(limits)}){flag}"
     return text
 
 
@@ -151,10 +160,12 @@ def _case_table(cases: Sequence[tuple[str, Any, dict[str, Any]]], targets: Seque
     rows = []
     for _key, group, doc in cases:
         bounds = list(doc.get("theory_bound") or ()) if doc else []
+        lowers = list(doc.get("theory_lower") or ()) if doc else []
         first = group.iloc[0]
         cells = [str(first["rule"]), str(first.get("case_status", "?"))]
         for j in range(len(targets)):
-            cells.append(_iter_cell(group, j, bounds[j] if j < len(bounds) else None))
+            cells.append(_iter_cell(group, j, bounds[j] if j < len(bounds) else None,
+                                    lowers[j] if j < len(lowers) else None))
         tps = [float(v) for v in group["time_per_step"] if _is_num(v)] if "time_per_step" in group else []
         cells.append(_seconds(statistics.median(tps)) if tps else "-")
         last = group[group["target_index"] == len(targets) - 1]
@@ -164,6 +175,13 @@ def _case_table(cases: Sequence[tuple[str, Any, dict[str, Any]]], targets: Seque
         cells.append(_fmt(statistics.median(fm)) if fm else "-")
         rows.append(tuple(cells))
     return Table(headers, tuple(rows))
+
+
+def _cases_with(rows: Any, flag: str) -> int:
+    """How many cases have a row with ``flag`` true (0 when the table has no such column: older runs)."""
+    if flag not in rows:
+        return 0
+    return int(rows.groupby("case")[flag].apply(lambda s: bool((s == True).any())).sum())  # noqa: E712
 
 
 def _summary(run: StoredRun) -> tuple[tuple[str, ...], Table]:
@@ -191,13 +209,14 @@ def _summary(run: StoredRun) -> tuple[tuple[str, ...], Table]:
         gt = frame[tight & (frame["rule"] == rule)]
         solved = gt.groupby("case")["iterations"].apply(lambda s: all(_is_num(v) for v in s)).sum()
         viol = frame[(frame["rule"] == rule)]
-        nviol = int(viol.groupby("case")["bound_violated"].apply(lambda s: bool((s == True).any())).sum()) \
-            if "bound_violated" in viol else 0  # noqa: E712
+        nviol = _cases_with(viol, "bound_violated")
+        nbelow = _cases_with(viol, "below_lower")
         rows.append((str(rule), str(len(g)), str((st == "reached").sum()), str((st == "partial").sum()),
                      str((st == "budget").sum()), str((st == "unstable").sum()),
-                     str(st.isin(["diverged", "error", "timeout"]).sum()), f"{solved}/{len(g)}", str(nviol)))
+                     str(st.isin(["diverged", "error", "timeout"]).sum()), f"{solved}/{len(g)}", str(nviol),
+                     str(nbelow)))
     table = Table(("rule", "cases", "reached", "partial", "budget", "unstable", "failed", "tightest target met",
-                   "above bound"),
+                   "above bound", "below lower bound"),
                   tuple(rows))
     return tuple(sentences), table
 
@@ -280,7 +299,8 @@ def _problem_sections(run: StoredRun, draw: Any, traces_ok: bool) -> list[Proble
                 tr = run.traces(k)
                 if tr:
                     curves.append(figures.RuleCurves(str(g.iloc[0]["rule"]), tuple(tr[s] for s in sorted(tr)),
-                                                     tuple(doc.get("theory_bound") or ()), doc.get("bound_source", "")))
+                                                     tuple(doc.get("theory_bound") or ()), doc.get("bound_source", ""),
+                                                     tuple(doc.get("theory_lower") or ())))
             missing = len(cases) - len(curves)
             if curves:
                 seeds = max(len(c.traces) for c in curves)
@@ -291,7 +311,10 @@ def _problem_sections(run: StoredRun, draw: Any, traces_ok: bool) -> list[Proble
                            + ". Dotted: targets. The axis stops six decades below the tightest target; a measure of 0 "
                            "or below (the optimum to the last bit) has no place on the log axis and is not drawn."
                            + (" Dashed: iterations the theory bound guarantees for each target ("
-                              + "; ".join(bounds) + ")." if bounds else ""))
+                              + "; ".join(bounds) + ")." if bounds else "")
+                           + (" Long dashes, dark grey: the fewest iterations any gradient-span method can need "
+                              "(the conjugate-gradient count on this quadratic); no curve of such a rule can cross a "
+                              "target left of it." if any(c.theory_lower for c in curves) else ""))
                 fig = draw(f"curves-{_slug(pname)}", figures.convergence_figure(
                     curves, targets, title=pname, measure=str(first.get("measure", "measure")), styles=styles),
                     caption)
@@ -474,13 +497,15 @@ def render_html(r: Report) -> str:
         *(f"<p class=\"note\">{_h(n)}</p>" for n in r.notes),
         _html_table(r.summary_table),
         "<p class=\"muted\">tightest target met: every seed met the case's tightest target. "
-        "above bound: a seed needed more iterations than the published bound allows.</p>",
+        "above bound: a seed needed more iterations than the published bound allows. below lower bound: a seed "
+        "needed fewer iterations than any gradient-span method can (a measurement error).</p>",
         "<h2 id=\"profiles\">Profiles</h2>",
         *(f"<p class=\"note\">{_h(n)}</p>" for n in r.profile_notes),
         *(_html_figure(f) for f in r.profiles),
         "<h2 id=\"problems\">Problems</h2>",
         "<p class=\"muted\">Iterations to each target (median over seeds where there are several); "
-        "(&lt;= N): the theory bound; ! marks a count above it.</p>",
+        "(&lt;= N): the theory bound; (&gt;= N): the lower bound of any gradient-span method; ! marks a count "
+        "outside them.</p>",
     ]
     parts.append("<p>" + " ".join(f"<a href=\"#p-{_h(_slug(p.name))}\">{_h(p.name)}</a>" for p in r.problems) + "</p>")
     for p in r.problems:

@@ -184,3 +184,12 @@ def test_convergence_axis_stops_six_decades_below_the_tightest_target() -> None:
     assert np.isclose(fig.axes[0].get_ylim()[0], 1e-14)
     line = [ln for ln in fig.axes[0].get_lines() if ln.get_label() == "gd"][0]
     assert np.array_equal(line.get_ydata(), [1e-3, 1e-20, 1e-30])  # the data is all there; the view is cut
+
+
+def test_lower_bound_drawn_once_per_problem() -> None:
+    a = tr([0, 1, 2, 4], [1.0, 0.5, 0.25, 0.0625])
+    curves = [figures.RuleCurves(r, (a,), theory_lower=(2, 3)) for r in ("gd", "heavy_ball")]
+    fig = figures.convergence_figure(curves, [0.3, 0.1], title="q")
+    lows = [ln for ln in fig.axes[0].get_lines() if ln.get_linestyle() == "--" and ln.get_marker() == "+"]
+    assert len(lows) == 1  # the instance's bound, not one per rule
+    assert list(lows[0].get_xdata()) == [2, 3] and list(lows[0].get_ydata()) == [0.3, 0.1]

@@ -49,7 +49,10 @@ def test_page_order_and_content(runs: tuple[Path, str, str], page: Path) -> None
     # the table cell of gd's first target is the stored count
     gd = run.frame[(run.frame["rule"] == "gd") & (run.frame["instance"] == "quad-diag-kappa10-d10")]
     k = int(gd[gd["target_index"] == 0]["iterations"].iloc[0])
-    assert re.search(rf"<td>gd</td><td>reached</td><td class=\"num\">{k}( \(&lt;= \d+\))?</td>", text)
+    lower = run.cases[gd["case"].iloc[0]].get("theory_lower") or [None]
+    cell = (re.escape(f"{k} (&gt;= {lower[0]}, &lt;= ") + r"\d+\)" if lower[0] is not None
+            else re.escape(f"{k}") + r"( \(&lt;= \d+\))?")  # the lower bound, where the run has one
+    assert re.search(rf"<td>gd</td><td>reached</td><td class=\"num\">{cell}</td>", text)
     commit = run.meta["git"]["commit"]
     if commit:
         assert commit in text
