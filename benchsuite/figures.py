@@ -204,7 +204,7 @@ def convergence_figure(
         ks, ts = zip(*bound_points(lower, targets))
         lo = ax_it.plot(ks, ts, linestyle=LOWER_STYLE, color="0.25", marker="+", linewidth=1.0, markersize=7)[0]
         handles.append(lo)
-        labels.append("lower bound (any gradient-span method)")
+        labels.append("lower bound (Krylov)")
     xlabels = {"iteration": "iterations (log)", "seconds": "seconds, timing replay (log)"}
     floor = min(targets) * FLOOR_BELOW_TIGHTEST if targets else None
     for ax, axis in panels:
@@ -255,7 +255,7 @@ def performance_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mappin
         ax.set_xscale("log", base=2)
         ax.set_ylim(-0.02, 1.02)
         ax.set_xlabel(f"tau (ratio to the best, {m.unit})")
-        ax.set_title(f"target {m.target:g}  ({len(m.problems)} problems)", fontsize=9)
+        ax.set_title(f"target {m.target:g}  ({len(m.problems)} problem{'s' if len(m.problems) != 1 else ''})", fontsize=9)
         ax.grid(True, alpha=0.25)
     for ax in axes[::2]:
         ax.set_ylabel("fraction of problems")
@@ -285,7 +285,7 @@ def data_profile_figure(matrices: Sequence[CostMatrix], *, styles: Mapping[str, 
         ax.set_xscale("log")
         ax.set_ylim(-0.02, 1.02)
         ax.set_xlabel("alpha: gradient evaluations / (d + 1)")
-        ax.set_title(f"target {m.target:g}  ({len(m.problems)} problems)", fontsize=9)
+        ax.set_title(f"target {m.target:g}  ({len(m.problems)} problem{'s' if len(m.problems) != 1 else ''})", fontsize=9)
         ax.grid(True, alpha=0.25)
     for ax in axes[::2]:
         ax.set_ylabel("fraction of problems solved")

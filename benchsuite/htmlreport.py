@@ -221,6 +221,14 @@ def _summary(run: StoredRun) -> tuple[tuple[str, ...], Table]:
     return tuple(sentences), table
 
 
+def shared_targets(matrices: Sequence[Any]) -> list[float]:
+    """Targets worth a profile: those at least half of the run's problems (and at least two) have."""
+    if not matrices:
+        return []
+    most = max(len(m.problems) for m in matrices)
+    return [m.target for m in matrices if len(m.problems) >= max(2, math.ceil(most / 2))]
+
+
 def profile_rows(frame: Any, selected: Sequence[Any]) -> Any:
     """The rows a sweep's profiles use: per problem only the selected grid point of each rule, under the
     rule's base label (``selected``: meta.json's sweep selection), so a rule is one column of the profile."""
@@ -250,20 +258,24 @@ def _profiles(run: StoredRun, dims: dict[str, int], draw: Any) -> tuple[list[Fig
     if len(rules) < 2:
         notes.append("Profiles compare rules; this run has one rule, so they show what it solved.")
     styles = figures.rule_styles(rules)
-    it = cost_matrices(frame, "iterations", dims)
+    every = {m: cost_matrices(frame, m, dims) for m in ("iterations", "time", "grad_calls")}
+    kept = shared_targets(every["iterations"])
+    left_out = [m.target for m in every["iterations"] if m.target not in kept]
+    if left_out:
+        notes.append("Targets that fewer than half of the problems have are left out of the profiles: "
+                     + ", ".join(f"{t:g}" for t in left_out) + ".")
+    it, tm, gc = ([m for m in every[k] if m.target in kept] for k in ("iterations", "time", "grad_calls"))
     out.append(draw("profile-iterations", figures.performance_profile_figure(it, styles=styles),
                     "Performance profiles in iterations (Dolan & Moré 2002). For each target: the fraction of "
                     "problems on which a rule needs at most tau times the iterations of the best rule; a "
                     "failure to meet the target counts as infinity. Cost: the first iteration at which the measure meets the "
                     "target (median over seeds; a seed that never meets it counts as infinity)."))
-    tm = cost_matrices(frame, "time", dims)
     if any(timed(m) for m in tm):
         out.append(draw("profile-time", figures.performance_profile_figure(
             tm, styles=styles, title="Performance profiles in wall time (timing replay); a failure counts as infinity"),
             "Performance profiles in time: the same, with the median replayed wall time to each target."))
     else:
         notes.append("No time profiles: this run was not timed (--no-timing).")
-    gc = cost_matrices(frame, "grad_calls", dims)
     out.append(draw("profile-data", figures.data_profile_figure(gc, styles=styles),
                     "Data profiles (Moré & Wild 2009): the fraction of problems a rule solves within a budget of "
                     "alpha simplex gradients, i.e. alpha (d + 1) gradient evaluations for a problem of dimension d "

@@ -174,3 +174,18 @@ def test_sweep_profiles_use_the_selected_point_under_the_base_label() -> None:
     rows = profile_rows(frame, selected)
     assert rows["case"].tolist() == ["a|gd(lr=1)", "b|gd(lr=0.1)"] and set(rows["rule"]) == {"gd"}
     assert profile_rows(frame, []) is frame
+
+
+def test_profiles_leave_out_targets_few_problems_have() -> None:
+    import numpy as np
+
+    from benchsuite.htmlreport import shared_targets
+    from benchsuite.profiles import CostMatrix
+
+    def m(target: float, n: int) -> CostMatrix:
+        return CostMatrix("iterations", target, tuple(f"p{i}" for i in range(n)), ("gd",), np.ones((n, 1)), (1,) * n)
+
+    # 18 problems have 1e-2, one has 1e-1, 9 have 1e-8 (exactly half: kept)
+    assert shared_targets([m(1e-1, 1), m(1e-2, 18), m(1e-8, 9)]) == [1e-2, 1e-8]
+    assert shared_targets([m(1e-2, 1)]) == []  # a profile over one problem says nothing
+    assert shared_targets([]) == []
