@@ -25,6 +25,7 @@ and are re-exported here for callers of the earlier single-module runner.
 from __future__ import annotations
 
 import os
+import platform
 import statistics
 import sys
 import time
@@ -84,22 +85,6 @@ DEFAULT_TIMEOUT = 120.0
 
 
 # -- running many cases -------------------------------------------------------------------
-def _progress_printer(total: int, mode: bool | None) -> Callable[[int, str], None]:
-    tty = sys.stderr.isatty()
-    if mode is False:
-        return lambda done, text: None
-    if tty:
-        def bar(done: int, text: str) -> None:
-            width = 24
-            fill = int(width * done / max(total, 1))
-            sys.stderr.write(f"\r[{'#' * fill}{'.' * (width - fill)}] {done}/{total} {text[:60]:<60}")
-            if done == total:
-                sys.stderr.write("\n")
-            sys.stderr.flush()
-        return bar
-    return lambda done, text: print(f"benchsuite: [{done}/{total}] {text}", file=sys.stderr, flush=True)
-
-
 def _summary_line(r: CaseResult) -> str:
     its = [o.iters[-1] for o in r.outcomes if o.iters and o.iters[-1] is not None]
     tail = f" ({int(statistics.median(its))} it)" if its else ""
@@ -136,6 +121,7 @@ def run_cases(
     from threadpoolctl import threadpool_limits
 
     from benchsuite.executors import make_executor
+    from benchsuite.progress import progress_display
 
     jobs = max(1, int(jobs or os.cpu_count() or 1))
     if repeats < 1:
@@ -156,7 +142,7 @@ def run_cases(
             owner.append(i)
     to_run = len(set(owner))
     to_time = [i for i in range(len(cases)) if timing and (i not in results or not results[i].timed)]
-    show = _progress_printer(to_run + len(to_time), progress)
+    show = progress_display(to_run + len(to_time), progress)
     reports: dict[int, dict[int, PassReport]] = {}
     seeds_left = {i: len(cases[i].seeds) for i in set(owner)}
     done = 0
@@ -549,6 +535,7 @@ def execute(
         "skipped": list(plan.skipped),
         "n_cases": len(plan.cases),
         "status": "running",
+        "process": {"pid": os.getpid(), "host": platform.node()},  # tells a live run from a killed one
     })
     meta.setdefault("resumed", [])
     if resume:

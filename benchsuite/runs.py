@@ -9,8 +9,12 @@ Status of a listed run (from ``meta.json``'s ``status``):
 * ``complete`` -- the run finished and closed itself;
 * ``partial`` -- stopped by Ctrl-C: it closed itself with the cases that had
   finished (``benchsuite run --resume RUN_ID`` completes it);
-* ``interrupted`` -- it never closed (``meta.json`` still says ``running``):
-  the process was killed, the machine went down -- or it is still running.
+* ``running`` -- ``meta.json`` says ``running`` and the process it names
+  (host and process id) is alive on this machine;
+* ``interrupted`` -- it never closed (``meta.json`` still says ``running``)
+  and its process is gone: it was killed, or the machine went down. A run
+  recorded on another host, or before the process was recorded, cannot be
+  checked and is listed as interrupted.
 
 Every trace is read by :func:`load_traces` (the runner's ``RunDir.load_traces``) and nowhere else.
 """
@@ -127,6 +131,29 @@ def _case_docs(path: Path) -> dict[str, dict[str, Any]]:
     return found
 
 
+def _alive(process: Any) -> bool:
+    """Whether the process a ``meta.json`` names runs on this machine now."""
+    import os
+    import platform
+
+    if not isinstance(process, Mapping) or process.get("host") != platform.node():
+        return False
+    try:
+        os.kill(int(process["pid"]), 0)
+    except (ProcessLookupError, KeyError, TypeError, ValueError):
+        return False
+    except PermissionError:  # it exists, under another user
+        return True
+    return True
+
+
+def _status(meta: Mapping[str, Any]) -> str:
+    raw = str(meta.get("status"))
+    if raw == "running" and _alive(meta.get("process")):
+        return "running"
+    return _STATUS.get(raw, raw)
+
+
 def _info(path: Path, meta: dict[str, Any]) -> RunInfo:
     cases = _case_docs(path)
     req = meta.get("request") or {}
@@ -138,7 +165,7 @@ def _info(path: Path, meta: dict[str, Any]) -> RunInfo:
         path=path,
         started=str(meta.get("started") or "-"),
         ended=str(meta.get("ended") or "-"),
-        status=_STATUS.get(str(meta.get("status")), str(meta.get("status"))),
+        status=_status(meta),
         rules=tuple(meta.get("rules") or req.get("rules") or ()),
         problems=tuple(sorted({k.split(" | ")[0] for k in cases})),
         cases_done=len(cases),

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import shutil
+import subprocess
 import sys
 from pathlib import Path
 
@@ -64,5 +65,8 @@ def interrupted_copy(out: Path, run_id: str, new_id: str, *, drop: int = 1, stat
     meta = json.loads((dst / "meta.json").read_text())
     meta["status"] = status
     meta.pop("ended", None)
+    # the process that wrote it is gone: a child that has already exited
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    meta["process"] = {**meta.get("process", {}), "pid": int(gone.stdout)}
     (dst / "meta.json").write_text(json.dumps(meta))
     return dst

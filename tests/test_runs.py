@@ -116,3 +116,21 @@ def test_runs_bad_input_is_one_line(results: tuple[Path, str], capsys: pytest.Ca
     assert err.count("\n") == 1 and "no such run" in err
     assert main(["runs", "--errors", "--out", str(out)]) == 2
     assert "need a RUN_ID" in capsys.readouterr().err
+
+
+def test_a_run_whose_process_is_alive_is_running_and_a_dead_one_interrupted() -> None:
+    import os
+    import platform
+    import subprocess
+    import sys
+
+    from benchsuite.runs import _status
+
+    me = {"status": "running", "process": {"pid": os.getpid(), "host": platform.node()}}
+    assert _status(me) == "running"
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    dead = {"status": "running", "process": {"pid": int(gone.stdout), "host": platform.node()}}
+    assert _status(dead) == "interrupted"  # that process has exited (pids are not reused this fast)
+    assert _status({"status": "running", "process": {"pid": os.getpid(), "host": "another-host"}}) == "interrupted"
+    assert _status({"status": "running"}) == "interrupted"  # recorded before the process was
+    assert _status({"status": "complete"}) == "complete" and _status({"status": "partial"}) == "partial"
