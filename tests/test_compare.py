@@ -471,12 +471,16 @@ def test_fail_above_parsing() -> None:
 def test_cli_compare_json_with_one_param(tmp_path: Path) -> None:
     """The command takes one --param for both sides and prints the schema-2 JSON and Markdown."""
     out = cli("adam", "adam", "--param", "lr=0.1", "--problems", PROBLEM, "--pairs", "2", "--jobs", "1", "--json",
-              "--markdown", str(tmp_path / "c.md"))
+              "--markdown", str(tmp_path / "c.md"), "--html", str(tmp_path / "c.html"))
     assert out.returncode == 0, out.stderr
     doc = json.loads(out.stdout)
     assert doc["schema"] == "benchsuite-compare/2" and doc["a"] == doc["b"] == "adam(lr=0.1)"
     assert doc["cases"][0]["iters_a"] == doc["cases"][0]["iters_b"] and len(doc["cases"][0]["times_a"]) == 2
-    assert (tmp_path / "c.md").read_text().startswith("## benchsuite compare: time per step, B against A: ")
+    md = (tmp_path / "c.md").read_text()
+    assert md.startswith("## benchsuite compare: time per step, B against A: ")
+    assert md.rstrip().endswith("(c-forest.png)") and (tmp_path / "c-forest.png").read_bytes()[:4] == b"\x89PNG"
+    page = (tmp_path / "c.html").read_text()
+    assert page.startswith("<!DOCTYPE html>") and "data:image/png;base64," in page and "http" not in page.lower()
 
 
 def test_cli_option_names() -> None:
@@ -487,7 +491,7 @@ def test_cli_option_names() -> None:
     names = {o for a in sub._actions for o in a.option_strings}
     assert names == {"-h", "--help", "--param", "--param-a", "--param-b", "--rev-a", "--rev-b", "--runs", "--out",
                      "--problems", "--tier", "--catalogue", "--batch", "--pairs", "--process-pairs", "--fail-above",
-                     "--clock", "--jobs", "--markdown", "--json"}
+                     "--clock", "--jobs", "--markdown", "--html", "--json", "--cluster"}
 
 
 def test_readme_prints_no_machine_dependent_figure() -> None:

@@ -54,7 +54,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--jobs", type=int, default=None, help="worker processes for the monitored passes")
     p.add_argument("--cluster", metavar="ADDRESS", default=None,
                    help="Dask scheduler address: run the monitored passes on its workers (replay pairs stay here)")
-    p.add_argument("--markdown", metavar="FILE", help="write the comparison as Markdown")
+    p.add_argument("--markdown", metavar="FILE",
+                   help="write the comparison as Markdown, with its forest plot as a PNG beside the file")
+    p.add_argument("--html", metavar="FILE",
+                   help="write one self-contained HTML page: summary, forest plots, per-case table, method")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
 
 
@@ -115,6 +118,20 @@ def run(args: argparse.Namespace) -> int:
         finally:
             signal.signal(signal.SIGTERM, previous)
     if args.markdown:
-        atomic_write_text(Path(args.markdown), compare_markdown(result))
+        write_markdown_with_figure(Path(args.markdown), compare_markdown(result), result)
+    if args.html:
+        from benchsuite.htmlreport import compare_page
+
+        atomic_write_text(Path(args.html), compare_page(result))
     print(compare_json(result) if args.json else compare_table(result), end="" if args.json else "\n")
     return 0 if result.verdict is None else result.verdict.exit_code
+
+
+def write_markdown_with_figure(path: Path, text: str, result: Any) -> None:
+    """The Markdown file and, beside it, ``<stem>-forest.png`` (linked at the end) for a pull-request comment."""
+    from benchsuite import figures
+    from benchsuite.results import atomic_write_bytes, atomic_write_text
+
+    png = path.with_name(path.stem + "-forest.png")
+    atomic_write_bytes(png, figures.png(figures.compare_figure(result)))
+    atomic_write_text(path, text.rstrip("\n") + f"\n\n![time ratio B / A per case]({png.name})\n")
