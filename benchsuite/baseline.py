@@ -6,8 +6,14 @@ a hash of its definition, the rule with every hyperparameter actually used,
 oracle, batch, sampling, seeds, budget, targets, measure) and what the rule
 achieved (per seed: status, first iteration meeting each target, final measure,
 final relative distance to x*, and the *trajectory fingerprint*: the measure at
-iterations 1, 2, 4, 8, ...). Plus the schema version, the tool version and
-machine information.
+the ``checkpoints``; schema 2 adds per seed the round-off ``envelope`` at each
+checkpoint, the ``held`` crossings and the stay-converged horizon, and per case
+the ``catalogue`` the instance came from and the ``dtype``). Plus the schema
+version, the tool version and machine information.
+
+Schema 1 files still load (one release of compatibility): their checkpoints
+are the powers of two, the envelope is empty (the gate then falls back to its
+floor tolerance and says so), ``held`` equals ``iters`` and no horizon ran.
 
 The file is written for review: keys sorted, indent 2, cases sorted by key,
 floats written with ``repr`` (so they read back bit for bit); non-finite floats
@@ -34,11 +40,13 @@ from benchsuite.errors import UserError
 
 __all__ = [
     "SCHEMA",
+    "READABLE",
     "SeedRecord",
     "CaseRecord",
     "Baseline",
     "record_from_result",
     "make_baseline",
+    "catalogue_of",
     "dumps",
     "write_baseline",
     "load_baseline",
@@ -46,9 +54,11 @@ __all__ = [
 ]
 
 #: identifies the file format; bump the number on an incompatible change
-SCHEMA = "benchsuite-baseline/1"
+SCHEMA = "benchsuite-baseline/2"
+#: older schemas this version still reads
+READABLE = ("benchsuite-baseline/1", SCHEMA)
 
-_STATUSES = ("reached", "partial", "budget", "diverged", "error", "timeout")
+_STATUSES = ("reached", "partial", "budget", "unstable", "diverged", "error", "timeout")
 _ORACLES = ("full", "minibatch")
 _MEASURES = ("subopt", "dist", "gradnorm")
 
@@ -64,8 +74,35 @@ class SeedRecord:
     final_measure: float
     final_dist: float  # ||x_K - x*|| / ||x0 - x*||
     iterations_run: int
-    fingerprint: tuple[float, ...]  # measure at iterations 1, 2, 4, 8, ...
+    fingerprint: tuple[float, ...]  # measure at each of ``checkpoints``
     error: str | None = None
+    #: iterations at which ``fingerprint`` was recorded (empty: 1, 2, 4, 8, ...)
+    checkpoints: tuple[int, ...] = ()
+    #: per checkpoint, the relative round-off sensitivity of the measure (empty: not recorded)
+    envelope: tuple[float, ...] = ()
+    #: per target, the iteration from which the measure stayed below it (None: not held at the end)
+    held: tuple[int | None, ...] | None = None
+    #: steps run after the tightest target was first reached (0: never reached, or not run)
+    horizon: int = 0
+    #: first iteration of the horizon above the tightest target (None: stayed below)
+    left_at: int | None = None
+    #: the largest measure over the horizon (nan: no horizon ran)
+    horizon_worst: float = math.nan
+
+    def __post_init__(self) -> None:
+        # schema-1 meaning of the missing fields, made explicit: one value, one record
+        if not self.checkpoints:
+            object.__setattr__(self, "checkpoints", tuple(2**j for j in range(len(self.fingerprint))))
+        if self.held is None:
+            object.__setattr__(self, "held", self.iters)
+
+    def checkpoint_iters(self) -> tuple[int, ...]:
+        """The iteration of each fingerprint entry (powers of two for schema-1 records)."""
+        return self.checkpoints
+
+    def held_iters(self) -> tuple[int | None, ...]:
+        """Per target, the held crossing (schema-1 records: the first crossing)."""
+        return self.iters if self.held is None else self.held
 
 
 @dataclass(frozen=True)
@@ -89,6 +126,9 @@ class CaseRecord:
     status: str
     outcomes: tuple[SeedRecord, ...]
     theory_bound: tuple[int | None, ...] = ()
+    #: where the instance came from: "builtin" or the catalogue file as given ("" unknown: schema 1)
+    catalogue: str = ""
+    dtype: str = "float64"
 
     @property
     def stochastic(self) -> bool:
@@ -142,6 +182,14 @@ def record_from_result(result: Any) -> CaseRecord:
             iterations_run=int(o.iterations_run),
             fingerprint=tuple(float(v) for v in o.fingerprint),
             error=None if o.error is None else (str(o.error).strip().splitlines() or [""])[-1],
+            # the contract fields (getattr: records from runners that predate them)
+            checkpoints=tuple(int(k) for k in getattr(o, "checkpoints", ())),
+            envelope=tuple(float(e) for e in getattr(o, "envelope", ())),
+            held=(tuple(_opt_int(h) for h in o.held) if getattr(o, "held", None) is not None
+                  and len(o.held) == len(targets) else None),
+            horizon=int(getattr(o, "horizon", 0) or 0),
+            left_at=_opt_int(getattr(o, "left_at", None)),
+            horizon_worst=float(getattr(o, "horizon_worst", math.nan)),
         )
         for o in result.outcomes
     )
@@ -163,7 +211,25 @@ def record_from_result(result: Any) -> CaseRecord:
         status=str(result.status),
         outcomes=outcomes,
         theory_bound=tuple(_opt_int(b) for b in (result.theory_bound or ())),
+        catalogue=catalogue_of(inst),
+        dtype=str(getattr(case, "dtype", None) or "float64"),
     )
+
+
+def catalogue_of(instance: Any) -> str:
+    """``"builtin"`` for an instance of the built-in catalogue, else its catalogue file as shown."""
+    from benchsuite.catalogue import builtin_dir
+
+    source = str(getattr(instance, "source", "") or "")
+    if not source:
+        return ""
+    try:
+        path = Path(source).resolve()
+        if path.is_relative_to(builtin_dir().resolve()):
+            return "builtin"
+    except OSError:
+        pass
+    return source
 
 
 def make_baseline(results: Iterable[Any], *, rule_label: str, machine: Mapping[str, Any] | None = None) -> Baseline:
@@ -211,6 +277,12 @@ def _seed_json(s: SeedRecord) -> dict[str, Any]:
         "iterations_run": s.iterations_run,
         "fingerprint": [_enc_float(v) for v in s.fingerprint],
         "error": s.error,
+        "checkpoints": list(s.checkpoint_iters()),
+        "envelope": [_enc_float(v) for v in s.envelope],
+        "held": list(s.held_iters()),
+        "horizon": s.horizon,
+        "left_at": s.left_at,
+        "horizon_worst": _enc_float(s.horizon_worst),
     }
 
 
@@ -232,6 +304,8 @@ def _case_json(c: CaseRecord) -> dict[str, Any]:
         "measure": c.measure,
         "status": c.status,
         "theory_bound": list(c.theory_bound),
+        "catalogue": c.catalogue,
+        "dtype": c.dtype,
         "outcomes": [_seed_json(s) for s in c.outcomes],
     }
 
@@ -239,7 +313,7 @@ def _case_json(c: CaseRecord) -> dict[str, Any]:
 def to_json(baseline: Baseline) -> dict[str, Any]:
     """The baseline as a JSON-ready dict (strict JSON: no NaN literals)."""
     return {
-        "schema": baseline.schema,
+        "schema": SCHEMA,  # always written in the current schema
         "tool_version": baseline.tool_version,
         "recorded_at": baseline.recorded_at,
         "rule": baseline.rule_label,
@@ -310,7 +384,8 @@ class _Reader:
 
     def float_(self, v: Any, where: str) -> float:
         if isinstance(v, str) and v in ("inf", "-inf", "nan"):
-            return float(v)
+            # math.nan itself, so that records compare equal after a round trip (tuples compare by identity first)
+            return math.nan if v == "nan" else float(v)
         if isinstance(v, bool) or not isinstance(v, (int, float)):
             raise self.fail(where, f"expected a number, got {v!r}")
         return float(v)
@@ -333,7 +408,7 @@ class _Reader:
         return tuple(out)
 
 
-def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
+def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int, version: int) -> SeedRecord:
     iters = tuple(r.opt_int(v, f"{where}.iters[{i}]") for i, v in enumerate(r.list_(r.get(obj, "iters", where), f"{where}.iters")))
     if len(iters) != n_targets:
         raise r.fail(f"{where}.iters", f"has {len(iters)} entries for {n_targets} targets")
@@ -348,6 +423,33 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
     err = obj.get("error") if isinstance(obj, Mapping) else None
     if err is not None and not isinstance(err, str):
         raise r.fail(f"{where}.error", f"expected a string or null, got {err!r}")
+    v2 = {}
+    if version >= 2:
+        cps = tuple(
+            r.int_(v, f"{where}.checkpoints[{i}]", minimum=1)
+            for i, v in enumerate(r.list_(r.get(obj, "checkpoints", where), f"{where}.checkpoints"))
+        )
+        if len(cps) != len(fp) or any(b <= a for a, b in zip(cps, cps[1:])):
+            raise r.fail(f"{where}.checkpoints", f"expected {len(fp)} increasing iterations (one per fingerprint entry)")
+        env = tuple(
+            r.float_(v, f"{where}.envelope[{i}]")
+            for i, v in enumerate(r.list_(r.get(obj, "envelope", where), f"{where}.envelope"))
+        )
+        if env and len(env) != len(fp):
+            raise r.fail(f"{where}.envelope", f"has {len(env)} entries for {len(fp)} checkpoints")
+        held = tuple(
+            r.opt_int(v, f"{where}.held[{i}]") for i, v in enumerate(r.list_(r.get(obj, "held", where), f"{where}.held"))
+        )
+        if len(held) != n_targets:
+            raise r.fail(f"{where}.held", f"has {len(held)} entries for {n_targets} targets")
+        v2 = dict(
+            checkpoints=cps,
+            envelope=env,
+            held=held,
+            horizon=r.int_(r.get(obj, "horizon", where), f"{where}.horizon", minimum=0),
+            left_at=r.opt_int(r.get(obj, "left_at", where), f"{where}.left_at"),
+            horizon_worst=r.float_(r.get(obj, "horizon_worst", where), f"{where}.horizon_worst"),
+        )
     return SeedRecord(
         seed=r.int_(r.get(obj, "seed", where), f"{where}.seed"),
         status=r.str_(obj, "status", where, _STATUSES),
@@ -358,10 +460,11 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
         iterations_run=r.int_(r.get(obj, "iterations_run", where), f"{where}.iterations_run", minimum=0),
         fingerprint=fp,
         error=err,
+        **v2,
     )
 
 
-def _parse_case(r: _Reader, obj: Any, where: str) -> CaseRecord:
+def _parse_case(r: _Reader, obj: Any, where: str, version: int) -> CaseRecord:
     targets = tuple(
         r.float_(v, f"{where}.targets[{i}]") for i, v in enumerate(r.list_(r.get(obj, "targets", where), f"{where}.targets"))
     )
@@ -371,7 +474,7 @@ def _parse_case(r: _Reader, obj: Any, where: str) -> CaseRecord:
     if not seeds:
         raise r.fail(f"{where}.seeds", "empty")
     outcomes = tuple(
-        _parse_seed(r, o, f"{where}.outcomes[{i}]", len(targets))
+        _parse_seed(r, o, f"{where}.outcomes[{i}]", len(targets), version)
         for i, o in enumerate(r.list_(r.get(obj, "outcomes", where), f"{where}.outcomes"))
     )
     if [o.seed for o in outcomes] != list(seeds):
@@ -402,6 +505,7 @@ def _parse_case(r: _Reader, obj: Any, where: str) -> CaseRecord:
             r.opt_int(v, f"{where}.theory_bound[{i}]")
             for i, v in enumerate(r.list_(obj.get("theory_bound", []), f"{where}.theory_bound"))
         ),
+        **(dict(catalogue=r.str_(obj, "catalogue", where), dtype=r.str_(obj, "dtype", where)) if version >= 2 else {}),
     )
 
 
@@ -411,12 +515,13 @@ def parse_baseline(data: Any, source: str = "<baseline>") -> Baseline:
     if not isinstance(data, Mapping):
         raise UserError(f"{source}: expected a JSON object at the top level")
     schema = r.str_(data, "schema", "")
-    if schema != SCHEMA:
-        raise r.fail("schema", f"{schema!r} is not supported (this tool reads {SCHEMA!r})")
+    if schema not in READABLE:
+        raise r.fail("schema", f"{schema!r} is not supported (this tool reads {', '.join(map(repr, READABLE))})")
+    version = int(schema.rsplit("/", 1)[1])
     machine = data.get("machine", {})
     if not isinstance(machine, Mapping):
         raise r.fail("machine", "expected an object")
-    cases = tuple(_parse_case(r, c, f"cases[{i}]") for i, c in enumerate(r.list_(r.get(data, "cases", ""), "cases")))
+    cases = tuple(_parse_case(r, c, f"cases[{i}]", version) for i, c in enumerate(r.list_(r.get(data, "cases", ""), "cases")))
     if not cases:
         raise r.fail("cases", "empty: the baseline has no cases")
     keys = [c.key for c in cases]
