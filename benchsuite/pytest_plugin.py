@@ -25,7 +25,7 @@ from typing import Any
 
 import pytest
 
-__all__ = ["assert_converges", "assert_meets_baseline", "benchsuite"]
+__all__ = ["assert_conforms", "assert_converges", "assert_meets_baseline", "benchsuite"]
 
 
 def _fmt_iters(targets: Sequence[float], iters: Sequence[int | None]) -> str:
@@ -119,3 +119,31 @@ def benchsuite() -> SimpleNamespace:
     """``benchsuite.converges(...)`` and ``benchsuite.meets_baseline(...)`` (see the module docstring)."""
     return SimpleNamespace(converges=assert_converges, meets_baseline=assert_meets_baseline)
 
+
+
+def assert_conforms(
+    rule: str,
+    method: str,
+    params: Mapping[str, Any] | None = None,
+    *,
+    problems: str | None = None,
+    steps: int | None = None,
+    convention: str | None = None,
+    catalogue: Sequence[str | Path] = (),
+) -> Any:
+    """Fail unless ``rule`` follows the built-in ``method`` step by step within its round-off envelope.
+
+    ``params`` are the rule's hyperparameters in its own names (torch-style
+    ``betas=(0.9, 0.999)`` is mapped); see :mod:`benchsuite.conformance`.
+    Returns the :class:`~benchsuite.conformance.ConformanceReport`.
+    """
+    __tracebackhide__ = True
+    from benchsuite.conformance import DEFAULT_STEPS, check_conformance
+
+    report = check_conformance(rule, method, dict(params or {}), problems=problems,
+                               steps=DEFAULT_STEPS if steps is None else steps, convention=convention,
+                               catalogue=[str(c) for c in catalogue])
+    if not report.conforms:
+        lines = [f"  {c.instance}: {c.describe()}" for c in report.cases if not c.conforms]
+        raise AssertionError(report.summary() + "\n" + "\n".join(lines))
+    return report
