@@ -386,7 +386,9 @@ BASELINES = {
     "adam": ({"lr": 0.1}, "quad-diag-kappa10-d10,logreg-dense-500x50,quad-small-gradients-kappa10-d10"),
     "heavy_ball": ({}, "quad-diag-kappa100-d50,quad-small-gradients-kappa10-d10"),
     "rmsprop": ({"lr": 0.01}, "quad-diag-kappa10-d10,quad-small-gradients-kappa10-d10"),
-    "gd": ({}, "quad-diag-kappa10-d10"),
+    # softmax: 135 iterations, so a schedule that goes wrong after 128 shows (issue 8 item 2);
+    # kappa 100: ~1400 iterations, so one step in a hundred skipped adds ~14 (issue 13 item 4)
+    "gd": ({}, "quad-diag-kappa10-d10,softmax-5class-500x20,quad-diag-kappa100-d50"),
 }
 
 #: broken variant -> the rule whose baseline it must fail
@@ -401,6 +403,11 @@ BROKEN = {
     "RMSPropEpsInsideSqrt": "rmsprop",  # eps inside the square root
     "RMSPropWrongDecay": "rmsprop",  # wrong decay constant (0.95 for 0.9)
     "GDStepTwice": "gd",  # learning rate applied twice
+    "GDStepCut8": "gd",  # step cut by 8 %
+    "GDSlowAfter128": "gd",  # step x0.8 after iteration 128 (issue 8: passed --exact)
+    "GDSkipEveryHundred": "gd",  # one step in a hundred skipped (issue 13: passed the 1 % allowance)
+    "AdamStateReset": "adam",  # m, v, t reset every 100 steps (issue 13: passed even --exact)
+    "AdamLateBlowUp": "adam",  # leaves the optimum once gradients are tiny
 }
 CORRECT = {"TextbookAdam": "adam", "TextbookHeavyBall": "heavy_ball", "TextbookRMSProp": "rmsprop"}
 
@@ -435,13 +442,31 @@ def gate(recorded: dict[str, Path], base: str, rule: str, jobs: int = 1, **cfg):
     return run_gate(load_baseline(recorded[base]), rule, config=GateConfig(**cfg), jobs=jobs, catalogue_paths=[EXTRA])
 
 
+@pytest.mark.parametrize("exact", [False, True], ids=["default", "exact"])
 @pytest.mark.parametrize("variant", sorted(BROKEN))
-def test_gate_fails_every_broken_variant(recorded, variant: str) -> None:
-    report = gate(recorded, BROKEN[variant], f"broken_rules:{variant}")
+def test_gate_fails_every_broken_variant(recorded, variant: str, exact: bool) -> None:
+    report = gate(recorded, BROKEN[variant], f"broken_rules:{variant}", exact=exact)
     assert not report.passed, f"{variant} passed the gate:\n" + "\n".join(
         f"{v.key}: {v.verdict} {v.notes}" for v in report.verdicts
     )
     assert all(v.reasons for v in report.failures)
+    assert any("not the rule the baseline was recorded with" in n for n in report.notes)
+
+
+def test_one_step_in_a_hundred_skipped_fails_by_default(recorded) -> None:
+    """Issue 13 item 4: ~1 % slower was inside the old max(1 iteration, 1 %) allowance."""
+    report = gate(recorded, "gd", "broken_rules:GDSkipEveryHundred")
+    (v,) = [v for v in report.verdicts if v.instance == "quad-diag-kappa100-d50"]
+    assert v.failed and any("allowed +1)" in r for r in v.reasons), v.reasons
+    slowest = [t for t in v.targets if t.outcome == "slower"][-1]
+    assert 0.005 < (slowest.candidate - slowest.baseline) / slowest.baseline < 0.02  # about 1 %
+
+
+def test_a_late_schedule_bug_fails_by_default(recorded) -> None:
+    """Issue 8 item 2: a step x0.8 after iteration 128 moved softmax's last target from 135 to 137."""
+    report = gate(recorded, "gd", "broken_rules:GDSlowAfter128")
+    (v,) = [v for v in report.verdicts if v.instance == "softmax-5class-500x20"]
+    assert v.failed and v.targets[-1].baseline == 135 and v.targets[-1].candidate == 137
 
 
 @pytest.mark.parametrize("rule", sorted(BASELINES))
