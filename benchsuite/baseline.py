@@ -5,15 +5,13 @@ holds, per case, everything needed to rerun the case exactly (instance name and
 a hash of its definition, the rule with every hyperparameter actually used,
 oracle, batch, sampling, seeds, budget, targets, measure) and what the rule
 achieved (per seed: status, first iteration meeting each target, final measure,
-final relative distance to x*, and the *trajectory fingerprint*: the measure at
-the ``checkpoints``; schema 2 adds per seed the round-off ``envelope`` at each
-checkpoint, the ``held`` crossings and the stay-converged horizon, and per case
-the ``catalogue`` the instance came from and the ``dtype``). Plus the schema
-version, the tool version and machine information.
-
-Schema 1 files still load (one release of compatibility): their checkpoints
-are the powers of two, the envelope is empty (the gate then falls back to its
-floor tolerance and says so), ``held`` equals ``iters`` and no horizon ran.
+final relative distance to x*, the *trajectory fingerprint* -- the measure at
+every iteration to 16, then on a geometric grid, and at the final iterate --
+with its round-off envelope, the held crossings and the stay-converged
+horizon), and where the instance came from. Plus the schema version, the tool
+version and machine information. Version 1 files still load (their
+fingerprint is at iterations 1, 2, 4, 8, ...; no envelope; crossings taken as
+held).
 
 The file is written for review: keys sorted, indent 2, cases sorted by key,
 floats written with ``repr`` (so they read back bit for bit); non-finite floats
@@ -27,8 +25,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import tempfile
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -40,13 +36,11 @@ from benchsuite.errors import UserError
 
 __all__ = [
     "SCHEMA",
-    "READABLE",
     "SeedRecord",
     "CaseRecord",
     "Baseline",
     "record_from_result",
     "make_baseline",
-    "catalogue_of",
     "dumps",
     "write_baseline",
     "load_baseline",
@@ -55,8 +49,9 @@ __all__ = [
 
 #: identifies the file format; bump the number on an incompatible change
 SCHEMA = "benchsuite-baseline/2"
-#: older schemas this version still reads
-READABLE = ("benchsuite-baseline/1", SCHEMA)
+#: older formats this version still reads (one release of compatibility): version 1 had the
+#: fingerprint at iterations 1, 2, 4, 8, ... and no envelope, held crossings or horizon
+READS = ("benchsuite-baseline/1", SCHEMA)
 
 _STATUSES = ("reached", "partial", "budget", "unstable", "diverged", "error", "timeout")
 _ORACLES = ("full", "minibatch")
@@ -76,33 +71,18 @@ class SeedRecord:
     iterations_run: int
     fingerprint: tuple[float, ...]  # measure at each of ``checkpoints``
     error: str | None = None
-    #: iterations at which ``fingerprint`` was recorded (empty: 1, 2, 4, 8, ...)
-    checkpoints: tuple[int, ...] = ()
-    #: per checkpoint, the relative round-off sensitivity of the measure (empty: not recorded)
-    envelope: tuple[float, ...] = ()
-    #: per target, the iteration from which the measure stayed below it (None: not held at the end)
-    held: tuple[int | None, ...] | None = None
-    #: steps run after the tightest target was first reached (0: never reached, or not run)
-    horizon: int = 0
-    #: first iteration of the horizon above the tightest target (None: stayed below)
-    left_at: int | None = None
-    #: the largest measure over the horizon (nan: no horizon ran)
-    horizon_worst: float = math.nan
+    checkpoints: tuple[int, ...] = ()  # dense then geometric (version 1: 1, 2, 4, 8, ...)
+    envelope: tuple[float, ...] = ()  # relative round-off sensitivity per checkpoint (empty: not recorded)
+    held: tuple[int | None, ...] = ()  # per target: held from this iteration to the end of the pass
+    horizon: int = 0  # steps run after the tightest target was first reached
+    left_at: int | None = None  # first horizon iteration above the tightest target
+    horizon_worst: float | None = None  # largest measure over the horizon (None: no horizon ran)
 
     def __post_init__(self) -> None:
-        # schema-1 meaning of the missing fields, made explicit: one value, one record
-        if not self.checkpoints:
-            object.__setattr__(self, "checkpoints", tuple(2**j for j in range(len(self.fingerprint))))
-        if self.held is None:
-            object.__setattr__(self, "held", self.iters)
-
-    def checkpoint_iters(self) -> tuple[int, ...]:
-        """The iteration of each fingerprint entry (powers of two for schema-1 records)."""
-        return self.checkpoints
-
-    def held_iters(self) -> tuple[int | None, ...]:
-        """Per target, the held crossing (schema-1 records: the first crossing)."""
-        return self.iters if self.held is None else self.held
+        if not self.checkpoints and self.fingerprint:  # version 1: powers of two
+            object.__setattr__(self, "checkpoints", tuple(2**i for i in range(len(self.fingerprint))))
+        if not self.held and self.iters:  # version 1: crossings were taken as held
+            object.__setattr__(self, "held", tuple(self.iters))
 
 
 @dataclass(frozen=True)
@@ -126,9 +106,9 @@ class CaseRecord:
     status: str
     outcomes: tuple[SeedRecord, ...]
     theory_bound: tuple[int | None, ...] = ()
-    #: where the instance came from: "builtin" or the catalogue file as given ("" unknown: schema 1)
-    catalogue: str = ""
-    dtype: str = "float64"
+    catalogue: str = "builtin"  # where the instance came from: "builtin" or the catalogue file as given
+    dtype: str | None = None  # the dtype override of the run (None: as catalogued)
+    horizon: tuple[int, float] = (100, 0.5)  # the stay-converged horizon setting of the run
 
     @property
     def stochastic(self) -> bool:
@@ -182,14 +162,12 @@ def record_from_result(result: Any) -> CaseRecord:
             iterations_run=int(o.iterations_run),
             fingerprint=tuple(float(v) for v in o.fingerprint),
             error=None if o.error is None else (str(o.error).strip().splitlines() or [""])[-1],
-            # the contract fields (getattr: records from runners that predate them)
-            checkpoints=tuple(int(k) for k in getattr(o, "checkpoints", ())),
-            envelope=tuple(float(e) for e in getattr(o, "envelope", ())),
-            held=(tuple(_opt_int(h) for h in o.held) if getattr(o, "held", None) is not None
-                  and len(o.held) == len(targets) else None),
-            horizon=int(getattr(o, "horizon", 0) or 0),
-            left_at=_opt_int(getattr(o, "left_at", None)),
-            horizon_worst=float(getattr(o, "horizon_worst", math.nan)),
+            checkpoints=tuple(int(k) for k in o.checkpoints),
+            envelope=tuple(float(v) for v in o.envelope),
+            held=tuple(_opt_int(i) for i in o.held),
+            horizon=int(o.horizon),
+            left_at=_opt_int(o.left_at),
+            horizon_worst=None if o.horizon_worst is None else float(o.horizon_worst),
         )
         for o in result.outcomes
     )
@@ -212,24 +190,24 @@ def record_from_result(result: Any) -> CaseRecord:
         outcomes=outcomes,
         theory_bound=tuple(_opt_int(b) for b in (result.theory_bound or ())),
         catalogue=catalogue_of(inst),
-        dtype=str(getattr(case, "dtype", None) or "float64"),
+        dtype=case.dtype,
+        horizon=(int(case.horizon[0]), float(case.horizon[1])),
     )
 
 
 def catalogue_of(instance: Any) -> str:
-    """``"builtin"`` for an instance of the built-in catalogue, else its catalogue file as shown."""
+    """``"builtin"`` for an instance of the built-in catalogue, else the file it was read from."""
     from benchsuite.catalogue import builtin_dir
 
-    source = str(getattr(instance, "source", "") or "")
-    if not source:
-        return ""
+    src = getattr(instance, "source", "") or ""
+    if not src:
+        return "builtin"
     try:
-        path = Path(source).resolve()
-        if path.is_relative_to(builtin_dir().resolve()):
+        if Path(src).resolve().parent == builtin_dir().resolve():
             return "builtin"
     except OSError:
         pass
-    return source
+    return src
 
 
 def make_baseline(results: Iterable[Any], *, rule_label: str, machine: Mapping[str, Any] | None = None) -> Baseline:
@@ -277,12 +255,12 @@ def _seed_json(s: SeedRecord) -> dict[str, Any]:
         "iterations_run": s.iterations_run,
         "fingerprint": [_enc_float(v) for v in s.fingerprint],
         "error": s.error,
-        "checkpoints": list(s.checkpoint_iters()),
+        "checkpoints": list(s.checkpoints),
         "envelope": [_enc_float(v) for v in s.envelope],
-        "held": list(s.held_iters()),
+        "held": list(s.held),
         "horizon": s.horizon,
         "left_at": s.left_at,
-        "horizon_worst": _enc_float(s.horizon_worst),
+        "horizon_worst": None if s.horizon_worst is None else _enc_float(s.horizon_worst),
     }
 
 
@@ -304,16 +282,17 @@ def _case_json(c: CaseRecord) -> dict[str, Any]:
         "measure": c.measure,
         "status": c.status,
         "theory_bound": list(c.theory_bound),
+        "outcomes": [_seed_json(s) for s in c.outcomes],
         "catalogue": c.catalogue,
         "dtype": c.dtype,
-        "outcomes": [_seed_json(s) for s in c.outcomes],
+        "horizon": [c.horizon[0], c.horizon[1]],
     }
 
 
 def to_json(baseline: Baseline) -> dict[str, Any]:
     """The baseline as a JSON-ready dict (strict JSON: no NaN literals)."""
     return {
-        "schema": SCHEMA,  # always written in the current schema
+        "schema": baseline.schema,
         "tool_version": baseline.tool_version,
         "recorded_at": baseline.recorded_at,
         "rule": baseline.rule_label,
@@ -332,18 +311,9 @@ def write_baseline(baseline: Baseline, path: str | Path, *, force: bool = False)
     path = Path(path)
     if path.exists() and not force:
         raise UserError(f"{path}: baseline exists; pass --force to overwrite it")
-    text = dumps(baseline)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    from benchsuite.results import atomic_write_text
+
+    atomic_write_text(path, dumps(baseline))
     return path
 
 
@@ -384,8 +354,7 @@ class _Reader:
 
     def float_(self, v: Any, where: str) -> float:
         if isinstance(v, str) and v in ("inf", "-inf", "nan"):
-            # math.nan itself, so that records compare equal after a round trip (tuples compare by identity first)
-            return math.nan if v == "nan" else float(v)
+            return float(v)
         if isinstance(v, bool) or not isinstance(v, (int, float)):
             raise self.fail(where, f"expected a number, got {v!r}")
         return float(v)
@@ -408,7 +377,7 @@ class _Reader:
         return tuple(out)
 
 
-def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int, version: int) -> SeedRecord:
+def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
     iters = tuple(r.opt_int(v, f"{where}.iters[{i}]") for i, v in enumerate(r.list_(r.get(obj, "iters", where), f"{where}.iters")))
     if len(iters) != n_targets:
         raise r.fail(f"{where}.iters", f"has {len(iters)} entries for {n_targets} targets")
@@ -420,36 +389,15 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int, version: int) 
         r.float_(v, f"{where}.fingerprint[{i}]")
         for i, v in enumerate(r.list_(r.get(obj, "fingerprint", where), f"{where}.fingerprint"))
     )
+    if len(iters) and obj.get("checkpoints") and len(obj["checkpoints"]) != len(fp):
+        raise r.fail(f"{where}.checkpoints", f"has {len(obj['checkpoints'])} entries for {len(fp)} fingerprint values")
+    if obj.get("envelope") and len(obj["envelope"]) != len(fp):
+        raise r.fail(f"{where}.envelope", f"has {len(obj['envelope'])} entries for {len(fp)} fingerprint values")
+    if obj.get("held") and len(obj["held"]) != n_targets:
+        raise r.fail(f"{where}.held", f"has {len(obj['held'])} entries for {n_targets} targets")
     err = obj.get("error") if isinstance(obj, Mapping) else None
     if err is not None and not isinstance(err, str):
         raise r.fail(f"{where}.error", f"expected a string or null, got {err!r}")
-    v2 = {}
-    if version >= 2:
-        cps = tuple(
-            r.int_(v, f"{where}.checkpoints[{i}]", minimum=1)
-            for i, v in enumerate(r.list_(r.get(obj, "checkpoints", where), f"{where}.checkpoints"))
-        )
-        if len(cps) != len(fp) or any(b <= a for a, b in zip(cps, cps[1:])):
-            raise r.fail(f"{where}.checkpoints", f"expected {len(fp)} increasing iterations (one per fingerprint entry)")
-        env = tuple(
-            r.float_(v, f"{where}.envelope[{i}]")
-            for i, v in enumerate(r.list_(r.get(obj, "envelope", where), f"{where}.envelope"))
-        )
-        if env and len(env) != len(fp):
-            raise r.fail(f"{where}.envelope", f"has {len(env)} entries for {len(fp)} checkpoints")
-        held = tuple(
-            r.opt_int(v, f"{where}.held[{i}]") for i, v in enumerate(r.list_(r.get(obj, "held", where), f"{where}.held"))
-        )
-        if len(held) != n_targets:
-            raise r.fail(f"{where}.held", f"has {len(held)} entries for {n_targets} targets")
-        v2 = dict(
-            checkpoints=cps,
-            envelope=env,
-            held=held,
-            horizon=r.int_(r.get(obj, "horizon", where), f"{where}.horizon", minimum=0),
-            left_at=r.opt_int(r.get(obj, "left_at", where), f"{where}.left_at"),
-            horizon_worst=r.float_(r.get(obj, "horizon_worst", where), f"{where}.horizon_worst"),
-        )
     return SeedRecord(
         seed=r.int_(r.get(obj, "seed", where), f"{where}.seed"),
         status=r.str_(obj, "status", where, _STATUSES),
@@ -460,11 +408,21 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int, version: int) 
         iterations_run=r.int_(r.get(obj, "iterations_run", where), f"{where}.iterations_run", minimum=0),
         fingerprint=fp,
         error=err,
-        **v2,
+        checkpoints=tuple(
+            r.int_(v, f"{where}.checkpoints[{i}]", minimum=1)
+            for i, v in enumerate(r.list_(obj.get("checkpoints", []), f"{where}.checkpoints"))
+        ),
+        envelope=tuple(
+            r.float_(v, f"{where}.envelope[{i}]") for i, v in enumerate(r.list_(obj.get("envelope", []), f"{where}.envelope"))
+        ),
+        held=tuple(r.opt_int(v, f"{where}.held[{i}]") for i, v in enumerate(r.list_(obj.get("held", []), f"{where}.held"))),
+        horizon=r.int_(obj.get("horizon", 0), f"{where}.horizon", minimum=0),
+        left_at=r.opt_int(obj.get("left_at"), f"{where}.left_at"),
+        horizon_worst=None if obj.get("horizon_worst") is None else r.float_(obj["horizon_worst"], f"{where}.horizon_worst"),
     )
 
 
-def _parse_case(r: _Reader, obj: Any, where: str, version: int) -> CaseRecord:
+def _parse_case(r: _Reader, obj: Any, where: str) -> CaseRecord:
     targets = tuple(
         r.float_(v, f"{where}.targets[{i}]") for i, v in enumerate(r.list_(r.get(obj, "targets", where), f"{where}.targets"))
     )
@@ -474,7 +432,7 @@ def _parse_case(r: _Reader, obj: Any, where: str, version: int) -> CaseRecord:
     if not seeds:
         raise r.fail(f"{where}.seeds", "empty")
     outcomes = tuple(
-        _parse_seed(r, o, f"{where}.outcomes[{i}]", len(targets), version)
+        _parse_seed(r, o, f"{where}.outcomes[{i}]", len(targets))
         for i, o in enumerate(r.list_(r.get(obj, "outcomes", where), f"{where}.outcomes"))
     )
     if [o.seed for o in outcomes] != list(seeds):
@@ -505,8 +463,17 @@ def _parse_case(r: _Reader, obj: Any, where: str, version: int) -> CaseRecord:
             r.opt_int(v, f"{where}.theory_bound[{i}]")
             for i, v in enumerate(r.list_(obj.get("theory_bound", []), f"{where}.theory_bound"))
         ),
-        **(dict(catalogue=r.str_(obj, "catalogue", where), dtype=r.str_(obj, "dtype", where)) if version >= 2 else {}),
+        catalogue=str(obj.get("catalogue") or "builtin"),
+        dtype=obj.get("dtype"),
+        horizon=_horizon(r, obj.get("horizon", [100, 0.5]), f"{where}.horizon"),
     )
+
+
+def _horizon(r: _Reader, v: Any, where: str) -> tuple[int, float]:
+    items = r.list_(v, where)
+    if len(items) != 2:
+        raise r.fail(where, f"expected [steps, multiple], got {v!r}")
+    return (r.int_(items[0], f"{where}[0]", minimum=0), r.float_(items[1], f"{where}[1]"))
 
 
 def parse_baseline(data: Any, source: str = "<baseline>") -> Baseline:
@@ -515,13 +482,12 @@ def parse_baseline(data: Any, source: str = "<baseline>") -> Baseline:
     if not isinstance(data, Mapping):
         raise UserError(f"{source}: expected a JSON object at the top level")
     schema = r.str_(data, "schema", "")
-    if schema not in READABLE:
-        raise r.fail("schema", f"{schema!r} is not supported (this tool reads {', '.join(map(repr, READABLE))})")
-    version = int(schema.rsplit("/", 1)[1])
+    if schema not in READS:
+        raise r.fail("schema", f"{schema!r} is not supported (this tool reads {', '.join(map(repr, READS))})")
     machine = data.get("machine", {})
     if not isinstance(machine, Mapping):
         raise r.fail("machine", "expected an object")
-    cases = tuple(_parse_case(r, c, f"cases[{i}]", version) for i, c in enumerate(r.list_(r.get(data, "cases", ""), "cases")))
+    cases = tuple(_parse_case(r, c, f"cases[{i}]") for i, c in enumerate(r.list_(r.get(data, "cases", ""), "cases")))
     if not cases:
         raise r.fail("cases", "empty: the baseline has no cases")
     keys = [c.key for c in cases]

@@ -284,7 +284,7 @@ def envelope_at(rec: SeedRecord, k: int) -> float | None:
     if not rec.envelope:
         return None
     worst = 0.0
-    for cp, e in zip(rec.checkpoint_iters(), rec.envelope):
+    for cp, e in zip(rec.checkpoints, rec.envelope):
         if math.isfinite(e):
             worst = max(worst, e)
         elif math.isinf(e):
@@ -296,7 +296,7 @@ def envelope_at(rec: SeedRecord, k: int) -> float | None:
 
 def roundoff_from(rec: SeedRecord, level: float = ROUNDOFF_DOMINATED) -> int | None:
     """The first checkpoint whose envelope reaches ``level`` (None: never, or no envelope)."""
-    for cp, e in zip(rec.checkpoint_iters(), rec.envelope):
+    for cp, e in zip(rec.checkpoints, rec.envelope):
         if not e < level:
             return cp
     return None
@@ -316,12 +316,12 @@ def _seeds(label: Sequence[int]) -> str:
 
 
 def _check_target(
-    j: int, base: CaseRecord, cand: CaseRecord, cfg: GateConfig, reasons: list[str], notes: list[str]
+    j: int, base: CaseRecord, cand: CaseRecord, cfg: GateConfig, reasons: list[str], notes: list[str], held: bool
 ) -> TargetCheck:
-    """Judge target ``j`` seed by seed (appends to ``reasons`` / ``notes``)."""
+    """Judge target ``j`` seed by seed (appends to ``reasons`` / ``notes``); first crossings unless ``held``."""
     tgt = _fmt_t(base.targets[j])
-    b_held = [_as_iters(o.held_iters()[j]) for o in base.outcomes]
-    c_held = [_as_iters(o.held_iters()[j]) for o in cand.outcomes]
+    b_held = [_as_iters((o.held if held else o.iters)[j]) for o in base.outcomes]
+    c_held = [_as_iters((o.held if held else o.iters)[j]) for o in cand.outcomes]
     spread = 0.0
     reached = [v for v in b_held if not math.isinf(v)]
     if cfg.noise_factor and base.stochastic and len(reached) > 1:
@@ -436,9 +436,9 @@ def _close(x: float, y: float, env: float | None, cfg: GateConfig) -> tuple[bool
 
 def _fingerprint_diff(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> str | None:
     """The first departure of ``b``'s fingerprint from ``a``'s on their common checkpoints (exact mode)."""
-    theirs = dict(zip(b.checkpoint_iters(), b.fingerprint))
-    env = dict(zip(a.checkpoint_iters(), a.envelope)) if a.envelope else {}
-    for k, x in zip(a.checkpoint_iters(), a.fingerprint):
+    theirs = dict(zip(b.checkpoints, b.fingerprint))
+    env = dict(zip(a.checkpoints, a.envelope)) if a.envelope else {}
+    for k, x in zip(a.checkpoints, a.fingerprint):
         if k not in theirs:
             continue
         y = theirs[k]
@@ -479,15 +479,23 @@ def _horizon(bo: SeedRecord, co: SeedRecord, tightest: str, stochastic: bool) ->
     if co.left_at is None and co.status != "unstable":
         return None, None
     where = f" at iteration {co.left_at}" if co.left_at is not None else ""
-    worst = f"; worst measure {co.horizon_worst:.3g}" if math.isfinite(co.horizon_worst) else ""
+    hw = co.horizon_worst
+    worst = f"; worst measure {hw:.3g}" if hw is not None and math.isfinite(hw) else ""
     text = f"{who}left the tightest target {tightest}{where} during the stay-converged horizon ({co.horizon} steps{worst})"
     if bo.left_at is None and bo.status != "unstable":
         return text + "; the baseline stayed below it", None
     return None, text + "; so did the baseline"
 
 
-def judge_case(base: CaseRecord, cand: CaseRecord, cfg: GateConfig = GateConfig()) -> CaseVerdict:
-    """Compare one candidate case with its baseline record, seed by seed (pure)."""
+def judge_case(
+    base: CaseRecord, cand: CaseRecord, cfg: GateConfig = GateConfig(), *, schema1: bool = False
+) -> CaseVerdict:
+    """Compare one candidate case with its baseline record, seed by seed (pure).
+
+    ``schema1``: the baseline ran no stay-converged horizon, so its "held"
+    crossings are only its first crossings; then first crossings are compared
+    and leaving the target during the horizon is noted, not judged.
+    """
     _compatible(base, cand)
     reasons: list[str] = []
     notes: list[str] = []
@@ -501,11 +509,14 @@ def judge_case(base: CaseRecord, cand: CaseRecord, cfg: GateConfig = GateConfig(
         if co.status in _BAD_STATUS:
             continue
         reason, note = _horizon(bo, co, tightest, stochastic)
+        if schema1 and reason:
+            reason, note = None, reason.replace("; the baseline stayed below it",
+                                                " (not judged: the schema-1 baseline ran no horizon)")
         if reason:
             reasons.append(reason)
         if note:
             notes.append(note)
-    checks = tuple(_check_target(j, base, cand, cfg, reasons, notes) for j in range(len(base.targets)))
+    checks = tuple(_check_target(j, base, cand, cfg, reasons, notes, not schema1) for j in range(len(base.targets)))
     # final point vs the certified optimum, on every seed whose baseline ended within x_tol
     for bo, co in zip(base.outcomes, cand.outcomes):
         if bo.final_dist <= base.x_tol and not co.final_dist <= base.x_tol and co.status not in _BAD_STATUS:
@@ -551,8 +562,12 @@ def judge(
     """Judge every case; ``candidates`` are in the baseline's case order."""
     if len(candidates) != len(baseline.cases):
         raise ValueError(f"{len(candidates)} candidate cases for {len(baseline.cases)} baseline cases")
-    verdicts = tuple(judge_case(b, c, cfg) for b, c in zip(baseline.cases, candidates))
+    schema1 = baseline.schema.endswith("/1")
+    verdicts = tuple(judge_case(b, c, cfg, schema1=schema1) for b, c in zip(baseline.cases, candidates))
     extra = list(notes)
+    if schema1:
+        extra.append("the baseline is schema 1 (no stay-converged horizon, no held crossings, no round-off "
+                     "envelope): first crossings are compared and the horizon is not judged; re-record it")
     if cfg.exact and not all(v.has_envelope for v in verdicts):
         n = sum(not v.has_envelope for v in verdicts)
         extra.append(f"{n} of {len(verdicts)} case(s) have no round-off envelope in the baseline (schema 1): "
@@ -662,6 +677,8 @@ def gate_cases(
                 targets=c.targets,
                 budget=c.budget,
                 measure=c.measure,
+                horizon=c.horizon,
+                dtype=c.dtype,
             )
         )
     return cases

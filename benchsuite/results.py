@@ -9,6 +9,10 @@ A run lives in ``<out>/runs/<run-id>/`` (``<out>`` defaults to ``results``):
 * ``cases/<hash>.json`` -- one file per finished case, written as soon as the
   case finishes, so an interrupted run keeps what it finished and
   ``--resume RUN_ID`` runs only the missing cases;
+* ``traces/<hash>.npz`` -- the convergence traces of the case's seeds
+  (columns ``seed``, ``iteration``, ``measure``, ``dist``, ``grad_calls``,
+  ``seconds``; see :class:`benchsuite.cases.Trace`); runs recorded before
+  traces existed have none, and load without curves;
 * ``table.csv`` -- the tidy table (one row per case x seed x target).
 
 Every file is written atomically: to a temporary file in the same folder,
@@ -69,6 +73,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "target_index",
     "target",
     "iterations",
+    "held_from",
     "grad_calls",
     "epochs",
     "time_to_target",
@@ -79,6 +84,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "final_measure",
     "final_dist",
     "iterations_run",
+    "left_at",
     "theory_bound",
     "bound_violated",
     "budget",
@@ -164,8 +170,52 @@ class RunDir:
     def write_meta(self, meta: Mapping[str, Any]) -> None:
         atomic_write_json(self.meta_path, dict(meta))
 
+    @staticmethod
+    def case_stem(key: str) -> str:
+        """The file stem of a case's files (``cases/<stem>.json``, ``traces/<stem>.npz``)."""
+        return hashlib.sha256(key.encode()).hexdigest()[:24]
+
     def _case_path(self, key: str) -> Path:
-        return self.path / "cases" / (hashlib.sha256(key.encode()).hexdigest()[:24] + ".json")
+        return self.path / "cases" / (self.case_stem(key) + ".json")
+
+    def _trace_path(self, key: str) -> Path:
+        return self.path / "traces" / (self.case_stem(key) + ".npz")
+
+    def save_traces(self, key: str, outcomes: Sequence[Any]) -> None:
+        """Store the seeds' traces of one case as one ``.npz`` (rows stacked, a ``seed`` column)."""
+        import io
+
+        import numpy as np
+
+        parts = [(o.seed, o.trace) for o in outcomes if getattr(o, "trace", None) is not None]
+        if not parts:
+            return
+        cols = {"seed": np.concatenate([np.full(len(t), s, dtype=np.int64) for s, t in parts])}
+        for name in ("iteration", "measure", "dist", "grad_calls", "seconds"):
+            cols[name] = np.concatenate([getattr(t, name) for _, t in parts])
+        buf = io.BytesIO()
+        np.savez_compressed(buf, **cols)
+        atomic_write_bytes(self._trace_path(key), buf.getvalue())
+
+    def load_traces(self, key: str) -> dict[int, Any]:
+        """Seed -> :class:`~benchsuite.cases.Trace` of one case; ``{}`` for a run recorded without traces."""
+        import numpy as np
+
+        from benchsuite.cases import Trace
+
+        path = self._trace_path(key)
+        if not path.is_file():
+            return {}
+        try:
+            with np.load(path, allow_pickle=False) as z:
+                cols = {name: z[name] for name in ("seed", *Trace.COLUMNS)}
+        except (OSError, ValueError, KeyError) as exc:
+            raise UserError(f"{path}: cannot read traces ({exc})") from None
+        out: dict[int, Any] = {}
+        for seed in np.unique(cols["seed"]):
+            sel = cols["seed"] == seed
+            out[int(seed)] = Trace(*(cols[name][sel] for name in Trace.COLUMNS))
+        return out
 
     def save_case(self, key: str, payload: Mapping[str, Any]) -> None:
         """Store one finished case (``payload`` must hold ``key``); replaces an earlier one."""
@@ -197,6 +247,8 @@ _SQL_TYPES = {
     "target_index": "INTEGER",
     "target": "REAL",
     "iterations": "INTEGER",
+    "held_from": "INTEGER",
+    "left_at": "INTEGER",
     "grad_calls": "INTEGER",
     "epochs": "REAL",
     "time_to_target": "REAL",
@@ -230,6 +282,10 @@ def _connect(db: Path) -> Iterator[sqlite3.Connection]:
                 f"ON DELETE CASCADE, {cols})"
             )
             conn.execute("CREATE INDEX IF NOT EXISTS rows_run ON rows(run_id)")
+            have = {row[1] for row in conn.execute("PRAGMA table_info(rows)")}
+            for c in TABLE_COLUMNS:  # a history written before a column existed gains it (NULL for old rows)
+                if c not in have:
+                    conn.execute(f'ALTER TABLE rows ADD COLUMN "{c}" {_SQL_TYPES.get(c, "TEXT")}')
         yield conn
     finally:
         conn.close()

@@ -1,90 +1,62 @@
-"""The runner: iterations, gradient calls and wall time to tolerance.
+"""The runner: plan cases, run their passes on an executor, time them, store the run.
 
-A :class:`Case` is a catalogue instance x a rule (with hyperparameters) x a
-gradient oracle x targets x budget x seeds. Running it has two parts.
+Data flows one way: a :class:`RunRequest` (plain data, kept in ``meta.json``
+so ``--resume`` can rebuild it) is planned into :class:`~benchsuite.cases.Case`
+values (:func:`plan_cases`); :func:`run_cases` ships one
+:class:`~benchsuite.monitor.PassTask` per case and seed to an executor
+(:mod:`benchsuite.executors`: local worker processes, or a Dask cluster), puts
+the reports back together into :class:`~benchsuite.cases.CaseResult` values,
+then times them with uninstrumented replays (:mod:`benchsuite.timing`) one at
+a time in this process, with BLAS threads pinned, never concurrently with
+other cases; :func:`execute` stores the run folder and the history and returns
+the tidy table (:mod:`benchsuite.tables`).
 
-**The monitored pass** (one per seed; :func:`monitored_pass`) starts at
-``x_0 = problem.initial_point()`` and per iteration ``k = 1, 2, ...`` takes
-the rule's step with the gradient at ``x_{k-1}``, then evaluates the
-convergence measure (:mod:`benchsuite.measures`) at ``x_k`` against the
-certified optimum. For each target it records the **first** ``k`` meeting it,
-the gradient calls (``k``: one per step) and the epochs (sample gradients /
-``n``) spent to get there. It stops when every target is met or the budget is
-spent. Cost: with the full oracle one ``value_and_grad`` per iteration -- the
-value at ``x_k`` comes with the gradient the next step needs, the objective is
-never evaluated twice. With a minibatch oracle the exact first crossing needs
-the full objective (or full gradient, or distance) at every iterate, which
-costs about one full pass over the data per iteration on top of the
-minibatch gradient; that is the price of exact counts and is why wall time
-comes from the replay below, never from this pass.
+Iteration counts do not depend on ``jobs`` or on the executor: every pass runs
+the same code with the same seed and the same BLAS thread count. Stochastic
+cases (minibatch oracle) run over several seeds (default 5); deterministic
+full-gradient cases run one seed.
 
-Status of a pass: ``reached`` (all targets), ``partial`` (some, then the
-budget ran out), ``budget`` (none), ``diverged`` (a non-finite value or
-measure, or a measure above :data:`DIVERGED_ABOVE` = 1e12, i.e. twelve orders
-of magnitude worse than the start), ``error`` (the rule -- or the problem at
-the rule's iterate -- raised; message and traceback kept) or ``timeout``
-(the per-pass wall-clock limit). A case's status aggregates its seeds: the
-first of ``error``, ``timeout``, ``diverged`` present in any seed, else
-``reached`` when every seed reached every target, ``budget`` when no seed
-reached any, else ``partial``. The rule contract is checked on the first step
-only (:meth:`benchsuite.rulespec.BuiltRule.check_step`). The fingerprint is the
-measure at iterations 1, 2, 4, 8, ...
-
-**The timing replay** (:func:`replay_times`): once the pass has found ``k`` for
-a target, the same steps are replayed with the same seed and no objective
-evaluations -- gradient and step only, in a tight loop -- timed with
-``time.perf_counter``; repeated ``repeats`` times (default 5) and more for
-short runs (until about 20 ms in total, at most 1000 repeats). Reported: the
-median time to each target, its spread (the interquartile range over
-repeats) and the time per step (median time to the last replayed iteration
-divided by its count). BLAS threads are pinned with threadpoolctl (default 1).
-Replays run one at a time in the calling process, after every monitored pass
-has finished, so no other case competes for the machine.
-
-**Parallel and robust** (:func:`run_cases`): monitored passes run in worker
-processes (``jobs``, default the number of cores); each worker builds the
-problem, the certified optimum and the rule itself from the picklable
-:class:`Case` (no big arrays are sent). A pass that overruns its deadline
-stops itself at the next check (status ``timeout``); a step that never
-returns gets its worker terminated and replaced, and its pass the status
-``timeout`` too. Iteration counts do not depend on ``jobs``: every pass runs
-the same code with the same seed and the same BLAS thread count.
-
-Stochastic cases (minibatch oracle) run over several seeds (default 5);
-deterministic full-gradient cases run one seed.
+The pieces live in their own modules -- :mod:`benchsuite.cases` (value
+objects), :mod:`benchsuite.monitor` (the monitored pass),
+:mod:`benchsuite.timing` (the replay), :mod:`benchsuite.tables` (the table) --
+and are re-exported here for callers of the earlier single-module runner.
 """
 
 from __future__ import annotations
 
-import math
-import multiprocessing as mp
 import os
-import signal
 import statistics
 import sys
 import time
-import traceback
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from dataclasses import replace as _with
-from multiprocessing.connection import wait
 from typing import TYPE_CHECKING, Any
 
-import numpy as np
-
+from benchsuite.cases import (
+    DIVERGED_ABOVE,
+    STATUSES,
+    Case,
+    CaseResult,
+    SeedOutcome,
+    Trace,
+    aggregate_status,
+    enc as _enc,
+    result_from_dict,
+    result_to_dict,
+)
 from benchsuite.errors import UserError
-from benchsuite.measures import make_measure
-from benchsuite.oracle import OracleSpec, gradient_function
+from benchsuite.monitor import PassReport, PassTask, monitored_pass
+from benchsuite.tables import table_rows, to_frame
+from benchsuite.timing import needs_replay, replay_seconds, replay_times, timed_outcome
 
 if TYPE_CHECKING:
     import pandas as pd
 
-    from benchsuite.catalogue import Instance
-    from benchsuite.rulespec import RuleSpec
-
 __all__ = [
     "DEFAULT_TIMEOUT",
     "DIVERGED_ABOVE",
+    "STATUSES",
     "Case",
     "CaseResult",
     "Plan",
@@ -92,6 +64,7 @@ __all__ = [
     "RunOutcome",
     "RunRequest",
     "SeedOutcome",
+    "Trace",
     "aggregate_status",
     "execute",
     "monitored_pass",
@@ -106,549 +79,8 @@ __all__ = [
     "to_frame",
 ]
 
-#: a measure above this (relative to the start) counts as divergence
-DIVERGED_ABOVE = 1e12
 #: default per-pass wall-clock limit of a monitored pass, seconds
 DEFAULT_TIMEOUT = 120.0
-#: seconds a step may overrun the deadline before its worker is terminated
-_KILL_GRACE = 2.0
-#: a replay is repeated until its total time reaches this (seconds) ...
-_MIN_TOTAL_SECONDS = 0.02
-#: ... but never more often than this
-_MAX_REPEATS = 1000
-#: replay length for the time per step of a case that reached no target
-_UNREACHED_REPLAY = 200
-STATUSES = ("reached", "partial", "budget", "diverged", "error", "timeout")
-_BAD = ("error", "timeout", "diverged")
-
-
-# -- value objects --------------------------------------------------------------
-@dataclass(frozen=True)
-class Case:
-    """Instance x rule x oracle x targets x budget x seeds (see the module docstring)."""
-
-    instance: Instance
-    rule: RuleSpec
-    oracle: str = "full"
-    batch: int | None = None
-    replace: bool = True
-    seeds: tuple[int, ...] = (0,)
-    targets: tuple[float, ...] = ()
-    budget: int | None = None
-    measure: str | None = None
-
-    @property
-    def oracle_spec(self) -> OracleSpec:
-        return OracleSpec(self.oracle, self.batch, self.replace)
-
-    @property
-    def run_targets(self) -> tuple[float, ...]:
-        return tuple(self.targets) if self.targets else tuple(self.instance.targets)
-
-    @property
-    def run_budget(self) -> int:
-        return int(self.budget if self.budget is not None else self.instance.budget)
-
-    @property
-    def run_measure(self) -> str:
-        return self.measure or self.instance.measure
-
-    def key(self) -> str:
-        """Stable, human-readable id: instance, rule label, oracle, and any overrides."""
-        parts = [self.instance.name, self.rule.label, self.oracle]
-        if self.oracle == "minibatch":
-            parts.append(f"B={self.batch}," + ("replace" if self.replace else "no-replace"))
-        parts.append("seeds=" + ",".join(str(s) for s in self.seeds))
-        if self.targets:
-            parts.append("targets=" + ",".join(repr(t) for t in self.targets))
-        if self.budget is not None:
-            parts.append(f"budget={self.budget}")
-        if self.measure:
-            parts.append(f"measure={self.measure}")
-        return " | ".join(parts)
-
-
-@dataclass(frozen=True)
-class SeedOutcome:
-    """What one seed's monitored pass (and its replay) found."""
-
-    seed: int
-    status: str
-    iters: tuple[int | None, ...]
-    grad_calls: tuple[int | None, ...]
-    epochs: tuple[float | None, ...]
-    final_measure: float
-    final_dist: float
-    fingerprint: tuple[float, ...]
-    iterations_run: int
-    error: str | None = None
-    time_to_target: tuple[float | None, ...] = ()
-    time_spread: tuple[float | None, ...] = ()
-    time_per_step: float | None = None
-
-
-@dataclass(frozen=True)
-class CaseResult:
-    """A case with the hyperparameters actually used, its seeds' outcomes and the theory bound."""
-
-    case: Case
-    hyperparams: dict[str, Any]
-    outcomes: tuple[SeedOutcome, ...]
-    theory_bound: tuple[int | None, ...]
-    status: str
-    #: the published rate behind ``theory_bound`` (empty when none applies)
-    bound_source: str = ""
-
-    @property
-    def timed(self) -> bool:
-        """Whether every seed that can be replayed has its timing."""
-        return all(not _needs_replay(o) for o in self.outcomes)
-
-    def bound_violated(self) -> tuple[bool, ...]:
-        """Per target: some seed needed more iterations than the theory bound allows."""
-        return tuple(
-            b is not None and any(o.iters[j] is not None and o.iters[j] > b for o in self.outcomes)
-            for j, b in enumerate(self.theory_bound)
-        )
-
-
-def aggregate_status(statuses: Sequence[str]) -> str:
-    """A case's status from its seeds' (see the module docstring)."""
-    for bad in _BAD:
-        if bad in statuses:
-            return bad
-    if statuses and all(s == "reached" for s in statuses):
-        return "reached"
-    if all(s == "budget" for s in statuses):
-        return "budget"
-    return "partial"
-
-
-# -- the monitored pass ------------------------------------------------------------
-def monitored_pass(
-    problem: Any,
-    rule: Any,
-    *,
-    x_star: np.ndarray,
-    f_star: float,
-    targets: Sequence[float],
-    budget: int,
-    measure: str = "subopt",
-    oracle: OracleSpec = OracleSpec(),
-    problem_key: str = "",
-    seed: int = 0,
-    deadline: float | None = None,
-    check_step: Callable[[Any, tuple[int, ...]], tuple[np.ndarray, Any]] | None = None,
-) -> SeedOutcome:
-    """Run ``rule`` (an object with ``init``/``step``) on ``problem`` and record first crossings.
-
-    ``deadline`` is a ``time.perf_counter()`` value after which the pass stops
-    with status ``timeout`` (checked every 16 iterations); ``check_step``
-    validates the first step's return value (raising stops the pass with
-    status ``error``).
-    """
-    targets = tuple(float(t) for t in targets)
-    nt = len(targets)
-    iters: list[int | None] = [None] * nt
-    calls: list[int | None] = [None] * nt
-    epochs: list[float | None] = [None] * nt
-    fingerprint: list[float] = []
-    n = problem.n_samples
-    full = oracle.kind == "full"
-    x = problem.initial_point()
-    shape = x.shape
-    f, g = problem.value_and_grad(x)
-    meas = make_measure(measure, f_star=f_star, x_star=x_star, x0=x, f0=f, g0=g)
-    dist0 = meas.distance(x)
-    need = meas.needs
-    grad_fn, sampler = gradient_function(problem, oracle, problem_key, seed)
-    status, error, m, k = "budget", None, 1.0, 0
-    unmet = nt
-    loosest = max(targets, default=-math.inf)  # the largest target not met yet
-    next_fp = 1
-    value = problem.value
-    value_and_grad = problem.value_and_grad
-    with np.errstate(all="ignore"):
-        try:
-            state = rule.init(x)
-            while k < budget:
-                if not full:
-                    g = grad_fn(x)
-                result = rule.step(x, g, state)
-                k += 1
-                if k == 1 and check_step is not None:
-                    result = check_step(result, shape)
-                x, state = result
-                if full:
-                    f, g = value_and_grad(x)
-                    m = meas(f, x, g)
-                elif need == "value":
-                    m = meas(value(x), x, None)
-                elif need == "grad":
-                    f, gm = value_and_grad(x)
-                    m = meas(f, x, gm)
-                else:
-                    m = meas(math.nan, x, None)
-                if not (m <= DIVERGED_ABOVE) or (full and not math.isfinite(f)):
-                    status = "diverged"
-                    break
-                if k == next_fp:
-                    fingerprint.append(float(m))
-                    next_fp *= 2
-                if m <= loosest:  # some unmet target is met now (one comparison otherwise)
-                    for j in range(nt):
-                        if iters[j] is None and m <= targets[j]:
-                            iters[j] = k
-                            calls[j] = k
-                            if n:
-                                epochs[j] = (sampler.samples if sampler is not None else k * n) / n
-                            unmet -= 1
-                    if not unmet:
-                        status = "reached"
-                        break
-                    loosest = max(t for j, t in enumerate(targets) if iters[j] is None)
-                if deadline is not None and not (k & 15) and time.perf_counter() > deadline:
-                    status = "timeout"
-                    break
-        except Exception as exc:  # the rule (or the problem at the rule's iterate) raised
-            status = "error"
-            error = f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}"
-    if status == "budget" and unmet < nt:
-        status = "partial"
-    try:
-        final_dist = meas.distance(x) / dist0 if dist0 > 0 else math.nan
-    except Exception:  # x is not an array after a broken step
-        final_dist = math.nan
-    return SeedOutcome(
-        seed=seed,
-        status=status,
-        iters=tuple(iters),
-        grad_calls=tuple(calls),
-        epochs=tuple(epochs),
-        final_measure=float(m),
-        final_dist=float(final_dist),
-        fingerprint=tuple(fingerprint),
-        iterations_run=k,
-        error=error,
-    )
-
-
-# -- building a case's pieces (in a worker or for a replay) -------------------------
-class _Built:
-    """A case's problem, certified optimum and constants, built from its Instance."""
-
-    __slots__ = ("problem", "f_star", "x_star", "constants", "key")
-
-    def __init__(self, instance: Instance, with_optimum: bool = True) -> None:
-        self.problem = instance.build()
-        self.constants = self.problem.constants()
-        self.key = instance.problem_hash()
-        self.f_star = math.nan
-        self.x_star = np.empty(0)
-        if with_optimum:
-            from benchsuite.optimum import certified_optimum
-
-            f64 = self.problem.dtype == np.float64  # the optimum is certified in float64
-            opt = certified_optimum(instance, problem=self.problem if f64 else None)
-            self.f_star = float(opt.f_star)
-            self.x_star = np.asarray(opt.x_star, dtype=np.float64)
-
-
-_BUILT_CACHE: dict[tuple[str, bool], _Built] = {}
-
-
-def _built(instance: Instance, with_optimum: bool = True) -> _Built:
-    """Cached per process (the last few instances): building a big problem twice is waste."""
-    key = (instance.definition_hash() + instance.name, with_optimum)
-    hit = _BUILT_CACHE.get(key)
-    if hit is None:
-        if len(_BUILT_CACHE) >= 4:
-            _BUILT_CACHE.pop(next(iter(_BUILT_CACHE)))
-        hit = _BUILT_CACHE[key] = _Built(instance, with_optimum)
-    return hit
-
-
-def _build_rule(case: Case, built: _Built, params: Mapping[str, Any] | None = None) -> Any:
-    from benchsuite.rulespec import build_rule, parse_rule
-
-    spec = case.rule if params is None else parse_rule(case.rule.name, dict(params))
-    return build_rule(spec, built.constants, dtype=built.problem.dtype)
-
-
-def _theory(case: Case, built: _Built, hyperparams: Mapping[str, Any]) -> tuple[tuple[int | None, ...], str]:
-    from benchsuite.theory import applicable_bound, theory_iterations
-
-    bound = applicable_bound(
-        case.rule.name,
-        hyperparams,
-        built.constants,
-        family=built.problem.family,
-        oracle=case.oracle,
-        measure=case.run_measure,
-    )
-    its = theory_iterations(bound, case.run_targets)
-    return its, (f"{bound.formula} ({bound.source})" if bound else "")
-
-
-@dataclass(frozen=True)
-class _PassReport:
-    """What a worker sends back for one (case, seed)."""
-
-    outcome: SeedOutcome
-    hyperparams: dict[str, Any]
-    theory_bound: tuple[int | None, ...]
-    bound_source: str
-
-
-def _failed_outcome(case: Case, seed: int, status: str, message: str) -> SeedOutcome:
-    nt = len(case.run_targets)
-    none = tuple(None for _ in range(nt))
-    return SeedOutcome(seed, status, none, none, none, math.nan, math.nan, (), 0, message)
-
-
-def _run_pass(case: Case, seed: int, timeout: float | None, ready: Callable[[], None] | None = None) -> _PassReport:
-    """Build everything for one (case, seed) and run its monitored pass."""
-    try:
-        built = _built(case.instance)
-        br = _build_rule(case, built)
-        bound, source = _theory(case, built, br.hyperparams)
-    except Exception as exc:  # UserError from a rule or family, a failed certification, ...
-        msg = str(exc) if isinstance(exc, UserError) else f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}"
-        if ready is not None:
-            ready()
-        return _PassReport(_failed_outcome(case, seed, "error", msg), {}, tuple(None for _ in case.run_targets), "")
-    if ready is not None:
-        ready()
-    deadline = None if timeout is None else time.perf_counter() + timeout
-    try:
-        outcome = monitored_pass(
-            built.problem,
-            br.rule,
-            x_star=built.x_star,
-            f_star=built.f_star,
-            targets=case.run_targets,
-            budget=case.run_budget,
-            measure=case.run_measure,
-            oracle=case.oracle_spec,
-            problem_key=built.key,
-            seed=seed,
-            deadline=deadline,
-            check_step=br.check_step,
-        )
-    except Exception as exc:  # e.g. rule.init raised outside the loop, or a zero measure scale
-        outcome = _failed_outcome(case, seed, "error", f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}")
-    return _PassReport(outcome, dict(br.hyperparams), bound, source)
-
-
-# -- worker processes -----------------------------------------------------------------
-def _worker_main(conn: Any, threads: int) -> None:
-    """Loop of a worker process: receive (task id, case, seed, timeout), send reports."""
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C and stops us
-    from threadpoolctl import threadpool_limits
-
-    threadpool_limits(limits=threads)
-    while True:
-        try:
-            msg = conn.recv()
-        except EOFError:
-            return
-        if msg is None:
-            return
-        tid, case, seed, timeout = msg
-        try:
-            report = _run_pass(case, seed, timeout, ready=lambda: conn.send(("ready", tid)))
-            conn.send(("done", tid, report))
-        except Exception as exc:  # a report that does not pickle, a broken pipe ...
-            try:
-                conn.send(("done", tid, _PassReport(_failed_outcome(case, seed, "error", repr(exc)), {}, (), "")))
-            except Exception:
-                return
-
-
-def _context() -> Any:
-    """``fork`` where available (fast start; workers inherit imports), else ``spawn``."""
-    methods = mp.get_all_start_methods()
-    return mp.get_context("fork" if "fork" in methods else "spawn")
-
-
-class _Worker:
-    def __init__(self, ctx: Any, threads: int) -> None:
-        self.conn, child = ctx.Pipe()
-        self.proc = ctx.Process(target=_worker_main, args=(child, threads), daemon=True)
-        self.proc.start()
-        child.close()
-        self.task: int | None = None
-        self.deadline: float | None = None
-
-    def stop(self, kill: bool = False) -> None:
-        if self.proc.is_alive():
-            if kill:
-                self.proc.kill()
-            else:
-                try:
-                    self.conn.send(None)
-                except (BrokenPipeError, OSError):
-                    self.proc.kill()
-        self.proc.join(timeout=5)
-        if self.proc.is_alive():  # pragma: no cover - a worker ignoring its stop message
-            self.proc.kill()
-            self.proc.join()
-        self.conn.close()
-
-
-def _run_passes(
-    tasks: Sequence[tuple[Case, int]],
-    *,
-    jobs: int,
-    threads: int,
-    timeout: float | None,
-    on_report: Callable[[int, _PassReport], None],
-) -> None:
-    """Run every (case, seed) task in ``jobs`` worker processes; report each as it ends."""
-    if not tasks:
-        return
-    ctx = _context()
-    # largest iteration budget first (a stable sort): long passes start early, so the
-    # last worker to finish is not left alone with one (results do not depend on order)
-    todo = sorted(range(len(tasks)), key=lambda t: -tasks[t][0].run_budget)
-    todo.reverse()
-    workers = [_Worker(ctx, threads) for _ in range(min(jobs, len(tasks)))]
-    pending = len(tasks)
-    try:
-        while pending:
-            for w in workers:
-                if w.task is None and todo:
-                    tid = todo.pop()
-                    case, seed = tasks[tid]
-                    w.task, w.deadline = tid, None
-                    w.conn.send((tid, case, seed, timeout))
-            now = time.monotonic()
-            deadlines = [w.deadline for w in workers if w.deadline is not None]
-            wait_for = None if not deadlines else max(0.0, min(deadlines) - now)
-            ready = wait([w.conn for w in workers if w.task is not None], timeout=wait_for)
-            for i, w in enumerate(workers):
-                if w.task is None:
-                    continue
-                if w.conn in ready:
-                    try:
-                        msg = w.conn.recv()
-                    except (EOFError, OSError):
-                        case, seed = tasks[w.task]
-                        code = w.proc.exitcode
-                        on_report(w.task, _PassReport(
-                            _failed_outcome(case, seed, "error", f"worker process died (exit code {code})"),
-                            {}, tuple(None for _ in case.run_targets), ""))
-                        pending -= 1
-                        w.stop(kill=True)
-                        workers[i] = _Worker(ctx, threads)
-                        continue
-                    if msg[0] == "ready":
-                        if timeout is not None:
-                            w.deadline = time.monotonic() + timeout + _KILL_GRACE
-                        continue
-                    on_report(msg[1], msg[2])
-                    pending -= 1
-                    w.task, w.deadline = None, None
-                elif w.deadline is not None and time.monotonic() > w.deadline:
-                    case, seed = tasks[w.task]
-                    on_report(w.task, _PassReport(
-                        _failed_outcome(case, seed, "timeout",
-                                        f"no return from the rule within {timeout:g} s; worker terminated"),
-                        {}, tuple(None for _ in case.run_targets), ""))
-                    pending -= 1
-                    w.stop(kill=True)
-                    workers[i] = _Worker(ctx, threads)
-    finally:
-        for w in workers:
-            w.stop(kill=w.task is not None)
-
-
-# -- the timing replay -------------------------------------------------------------------
-#: replay clocks: wall time, or the process's CPU time (not inflated by other
-#: processes competing for the cores; what ``compare`` uses by default)
-CLOCKS: dict[str, Callable[[], float]] = {"wall": time.perf_counter, "cpu": time.process_time}
-
-
-def _replay_once(problem: Any, rule: Any, grad: Callable[[np.ndarray], np.ndarray], x: np.ndarray,
-                 checkpoints: Sequence[int], clock: Callable[[], float] = time.perf_counter) -> list[float]:
-    """Seconds from the start to each checkpoint iteration, one uninstrumented run."""
-    step = rule.step
-    out = []
-    done = 0
-    t0 = clock()
-    state = rule.init(x)
-    for kc in checkpoints:
-        for _ in range(kc - done):
-            x, state = step(x, grad(x), state)
-        done = kc
-        out.append(clock() - t0)
-    return out
-
-
-def _fresh(case: Case, built: _Built, params: Mapping[str, Any], seed: int) -> tuple[Any, Callable, np.ndarray]:
-    br = _build_rule(case, built, params)
-    grad, _ = gradient_function(built.problem, case.oracle_spec, built.key, seed)
-    return br.rule, grad, built.problem.initial_point()
-
-
-def replay_times(case: Case, hyperparams: Mapping[str, Any], seed: int, checkpoints: Sequence[int],
-                 *, repeats: int = 5) -> list[list[float]]:
-    """Timed replays: per repeat, the seconds to each (sorted) checkpoint iteration.
-
-    At least ``repeats`` runs, more until the total passes 20 ms (at most 1000).
-    Each run gets a fresh rule, generator and start point, built outside the
-    timed region. Runs in the calling process with its BLAS thread setting and
-    numpy's error state (the monitored pass already ran these steps finite).
-    """
-    built = _built(case.instance, with_optimum=False)
-    cps = sorted(set(int(c) for c in checkpoints if c > 0))
-    if not cps:
-        return []
-    runs: list[list[float]] = []
-    total = 0.0
-    while len(runs) < repeats or (total < _MIN_TOTAL_SECONDS and len(runs) < _MAX_REPEATS):
-        rule, grad, x = _fresh(case, built, hyperparams, seed)
-        t = _replay_once(built.problem, rule, grad, x, cps)
-        runs.append(t)
-        total += t[-1]
-    return runs
-
-
-def replay_seconds(case: Case, hyperparams: Mapping[str, Any], seed: int, k: int, *, threads: int | None = 1,
-                   clock: str = "wall") -> float:
-    """One timed uninstrumented replay of ``k`` steps (for interleaved A/B comparisons).
-
-    ``threads`` pins the BLAS threads for the replay (``None``: leave as is);
-    ``clock`` is a key of :data:`CLOCKS`.
-    """
-    from threadpoolctl import threadpool_limits
-
-    built = _built(case.instance, with_optimum=False)
-    rule, grad, x = _fresh(case, built, hyperparams, seed)
-    with threadpool_limits(limits=threads):
-        return _replay_once(built.problem, rule, grad, x, [int(k)], CLOCKS[clock])[-1]
-
-
-def _needs_replay(o: SeedOutcome) -> bool:
-    return not o.time_to_target and o.status in ("reached", "partial", "budget") and o.iterations_run > 0
-
-
-def _quartiles(v: Sequence[float]) -> tuple[float, float]:
-    if len(v) < 2:
-        return v[0], 0.0
-    q = statistics.quantiles(v, n=4, method="inclusive")
-    return statistics.median(v), q[2] - q[0]
-
-
-def _timed(case: Case, hyperparams: Mapping[str, Any], o: SeedOutcome, repeats: int) -> SeedOutcome:
-    reached = [k for k in o.iters if k is not None]
-    cps = sorted(set(reached)) or [min(o.iterations_run, _UNREACHED_REPLAY)]
-    runs = replay_times(case, hyperparams, o.seed, cps, repeats=repeats)
-    per_cp = {cp: _quartiles([r[i] for r in runs]) for i, cp in enumerate(cps)}
-    ttt = tuple(None if k is None else per_cp[k][0] for k in o.iters)
-    spread = tuple(None if k is None else per_cp[k][1] for k in o.iters)
-    last = cps[-1]
-    return _with(o, time_to_target=ttt, time_spread=spread, time_per_step=per_cp[last][0] / last)
 
 
 # -- running many cases -------------------------------------------------------------------
@@ -685,26 +117,33 @@ def run_cases(
     progress: bool | None = None,
     previous: Mapping[str, CaseResult] | None = None,
     on_result: Callable[[CaseResult], None] | None = None,
+    envelope: bool = False,
+    cluster: str | None = None,
 ) -> list[CaseResult]:
-    """Run every case: monitored passes in parallel, then timing replays one at a time.
+    """Run every case: monitored passes on an executor, then timing replays one at a time.
 
     ``previous`` maps case keys to results of an interrupted run: finished
     ones are kept, those without timing only get their replays. ``on_result``
     is called with each case's result when its monitored passes finish and
     again when it is timed (to store it as soon as it exists).
-    ``progress``: ``None`` -- a bar on a terminal, plain lines otherwise;
-    ``False`` -- silent. Results come back in the order of ``cases``.
+    ``envelope`` records the round-off envelope (two shadow passes per seed;
+    see :mod:`benchsuite.monitor`). ``cluster`` is a Dask scheduler address
+    (default: local worker processes, ``jobs`` of them, default the number of
+    cores). ``progress``: ``None`` -- a bar on a terminal, plain lines
+    otherwise; ``False`` -- silent. Results come back in the order of ``cases``.
     """
     from threadpoolctl import threadpool_limits
 
+    from benchsuite.executors import make_executor
+
     jobs = max(1, int(jobs or os.cpu_count() or 1))
     if repeats < 1:
-        raise UserError(f"--repeats must be >= 1, got {repeats}")
+        raise UserError(f"--replays must be >= 1, got {repeats}")
     if timeout is not None and not timeout > 0:
         raise UserError(f"--timeout must be > 0 seconds, got {timeout}")
     previous = previous or {}
     results: dict[int, CaseResult] = {}
-    tasks: list[tuple[Case, int]] = []
+    tasks: list[PassTask] = []
     owner: list[int] = []
     for i, case in enumerate(cases):
         old = previous.get(case.key())
@@ -712,20 +151,20 @@ def run_cases(
             results[i] = _with(old, case=case)
             continue
         for seed in case.seeds:
-            tasks.append((case, seed))
+            tasks.append(PassTask(case, seed, timeout, envelope))
             owner.append(i)
-    to_time = sum(1 for i, c in enumerate(cases) if timing and (i not in results or not results[i].timed))
-    show = _progress_printer(len(tasks) + to_time, progress)
-    reports: dict[int, dict[int, _PassReport]] = {}
+    to_run = len(set(owner))
+    to_time = [i for i in range(len(cases)) if timing and (i not in results or not results[i].timed)]
+    show = _progress_printer(to_run + len(to_time), progress)
+    reports: dict[int, dict[int, PassReport]] = {}
     seeds_left = {i: len(cases[i].seeds) for i in set(owner)}
     done = 0
 
-    def collect(tid: int, report: _PassReport) -> None:
+    def collect(tid: int, report: PassReport) -> None:
         nonlocal done
         i = owner[tid]
         reports.setdefault(i, {})[tid] = report
         seeds_left[i] -= 1
-        done += 1
         if seeds_left[i] == 0:
             reps = [reports[i][t] for t in sorted(reports[i])]
             good = next((r for r in reps if r.hyperparams), reps[0])
@@ -735,140 +174,27 @@ def run_cases(
             results[i] = res
             if on_result is not None:
                 on_result(res)
+            done += 1
             show(done, _summary_line(res))
 
-    _run_passes(tasks, jobs=jobs, threads=threads, timeout=timeout, on_report=collect)
-    if timing:
+    executor = make_executor(jobs=jobs, threads=threads, cluster=cluster)
+    try:
+        executor.run(tasks, collect)
+    finally:
+        executor.close()
+    if to_time:
         with threadpool_limits(limits=threads):
-            for i in range(len(cases)):
+            for i in to_time:
                 res = results[i]
-                if res.timed:
-                    continue
-                outs = tuple(_timed(res.case, res.hyperparams, o, repeats) if _needs_replay(o) else o
-                             for o in res.outcomes)
-                results[i] = res = _with(res, outcomes=outs)
-                if on_result is not None:
-                    on_result(res)
+                if not res.timed:
+                    outs = tuple(timed_outcome(res.case, res.hyperparams, o, repeats) if needs_replay(o) else o
+                                 for o in res.outcomes)
+                    results[i] = res = _with(res, outcomes=outs)
+                    if on_result is not None:
+                        on_result(res)
                 done += 1
                 show(done, "timed " + _summary_line(res))
     return [results[i] for i in range(len(cases))]
-
-
-# -- serialisation (run directories, resume) ------------------------------------------------
-def _enc(v: Any) -> Any:
-    """JSON-safe: non-finite floats as strings, tuples as lists (recursively)."""
-    if isinstance(v, float) and not math.isfinite(v):
-        return repr(v)
-    if isinstance(v, (list, tuple)):
-        return [_enc(u) for u in v]
-    if isinstance(v, dict):
-        return {k: _enc(u) for k, u in v.items()}
-    if isinstance(v, np.generic):
-        return _enc(v.item())
-    return v
-
-
-def _dec_float(v: Any) -> Any:
-    if isinstance(v, str) and v in ("nan", "inf", "-inf"):
-        return float(v)
-    return v
-
-
-def result_to_dict(r: CaseResult) -> dict[str, Any]:
-    """A JSON-ready record of a result (the case itself is stored by its key)."""
-    return _enc({
-        "key": r.case.key(),
-        "hyperparams": r.hyperparams,
-        "theory_bound": list(r.theory_bound),
-        "bound_source": r.bound_source,
-        "status": r.status,
-        "outcomes": [asdict(o) for o in r.outcomes],
-    })
-
-
-def result_from_dict(case: Case, d: Mapping[str, Any]) -> CaseResult:
-    """Inverse of :func:`result_to_dict` for the given case."""
-    outs = []
-    for o in d["outcomes"]:
-        outs.append(SeedOutcome(
-            seed=int(o["seed"]),
-            status=o["status"],
-            iters=tuple(o["iters"]),
-            grad_calls=tuple(o["grad_calls"]),
-            epochs=tuple(o["epochs"]),
-            final_measure=float(_dec_float(o["final_measure"])),
-            final_dist=float(_dec_float(o["final_dist"])),
-            fingerprint=tuple(float(_dec_float(v)) for v in o["fingerprint"]),
-            iterations_run=int(o["iterations_run"]),
-            error=o.get("error"),
-            time_to_target=tuple(o.get("time_to_target") or ()),
-            time_spread=tuple(o.get("time_spread") or ()),
-            time_per_step=o.get("time_per_step"),
-        ))
-    hp = {k: tuple(v) if isinstance(v, list) else v for k, v in d["hyperparams"].items()}
-    return CaseResult(case, hp, tuple(outs), tuple(d["theory_bound"]), d["status"], d.get("bound_source", ""))
-
-
-# -- the tidy table ---------------------------------------------------------------------------
-def _hp_text(hp: Mapping[str, Any]) -> str:
-    import json
-
-    return json.dumps(_enc(dict(hp)), sort_keys=True, separators=(",", ":"))
-
-
-def table_rows(results: Sequence[CaseResult], selected: Mapping[str, bool] | None = None) -> list[dict[str, Any]]:
-    """One row per case x seed x target (columns: :data:`benchsuite.results.TABLE_COLUMNS`)."""
-    rows = []
-    for r in results:
-        c = r.case
-        key = c.key()
-        for o in r.outcomes:
-            for j, t in enumerate(c.run_targets):
-                k = o.iters[j]
-                b = r.theory_bound[j] if j < len(r.theory_bound) else None
-                rows.append({
-                    "case": key,
-                    "instance": c.instance.name,
-                    "rule": c.rule.label,
-                    "hyperparams": _hp_text(r.hyperparams),
-                    "oracle": c.oracle,
-                    "batch": c.batch,
-                    "replace": c.replace if c.oracle == "minibatch" else None,
-                    "measure": c.run_measure,
-                    "seed": o.seed,
-                    "target_index": j,
-                    "target": t,
-                    "iterations": k,
-                    "grad_calls": o.grad_calls[j],
-                    "epochs": o.epochs[j],
-                    "time_to_target": o.time_to_target[j] if o.time_to_target else None,
-                    "time_spread": o.time_spread[j] if o.time_spread else None,
-                    "time_per_step": o.time_per_step,
-                    "status": o.status,
-                    "case_status": r.status,
-                    "final_measure": o.final_measure,
-                    "final_dist": o.final_dist,
-                    "iterations_run": o.iterations_run,
-                    "theory_bound": b,
-                    "bound_violated": None if b is None else bool(k is not None and k > b),
-                    "budget": c.run_budget,
-                    "selected": None if selected is None else selected.get(key),
-                })
-    return rows
-
-
-def to_frame(results: Sequence[CaseResult], selected: Mapping[str, bool] | None = None) -> pd.DataFrame:
-    """The tidy table as a DataFrame (integer columns nullable)."""
-    import pandas as pd
-
-    from benchsuite.results import TABLE_COLUMNS
-
-    df = pd.DataFrame(table_rows(results, selected), columns=list(TABLE_COLUMNS))
-    for col in ("batch", "iterations", "grad_calls", "theory_bound"):
-        df[col] = df[col].astype("Int64")
-    for col in ("replace", "bound_violated", "selected"):
-        df[col] = df[col].astype("boolean")
-    return df
 
 
 # -- a run: request, cases, run directory, history -------------------------------------------------
@@ -1105,13 +431,15 @@ def execute(
         meta["resumed"].append(_now())
     if rd is not None:
         rd.write_meta(meta)
-    previous = {c.key(): result_from_dict(c, stored[c.key()]) for c in plan.cases if c.key() in stored}
+    previous = {c.key(): result_from_dict(c, stored[c.key()], rd.load_traces(c.key()) if rd else None)
+                for c in plan.cases if c.key() in stored}
     finished: dict[str, CaseResult] = dict(previous)
 
     def keep(r: CaseResult) -> None:
         finished[r.case.key()] = r
         if rd is not None:
             rd.save_case(r.case.key(), result_to_dict(r))
+            rd.save_traces(r.case.key(), r.outcomes)
 
     def close(status: str, results: Sequence[CaseResult], selected: list[dict[str, Any]]) -> pd.DataFrame:
         flags = None

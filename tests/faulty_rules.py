@@ -77,3 +77,43 @@ class PlainGD(_Base):
 
     def step(self, x, g, state):
         return self._gd(x, g, state)
+
+
+class LateBlowUp(_Base):
+    """Gradient descent that, from step ``at`` on, multiplies its step by ``grow`` each step.
+
+    Reaches tight targets first, then leaves them: the late blow-up near the
+    optimum the stay-converged horizon exists to catch.
+    """
+
+    def __init__(self, lr: float = 0.5, at: int = 60, grow: float = 1.2) -> None:
+        super().__init__(lr, at)
+        self.grow = grow
+
+    def step(self, x, g, state):
+        k = state["k"] + 1
+        lr = self.lr * (self.grow ** (k - self.at) if k >= self.at else 1.0)
+        state["k"] = k
+        return x - lr * g, state
+
+
+class Kicker(_Base):
+    """Gradient descent that, at step ``at``, jumps back towards the start by ``kick`` x the way done.
+
+    The measure leaves the tightest target once, then contracts again: with a
+    horizon long enough the pass ends converged (``left_at`` set, status
+    reached); with one too short it ends above (status unstable).
+    """
+
+    def __init__(self, lr: float = 0.5, at: int = 60, kick: float = 0.5) -> None:
+        super().__init__(lr, at)
+        self.kick = kick
+
+    def init(self, x0: np.ndarray) -> dict:
+        return {"k": 0, "x0": x0.copy()}
+
+    def step(self, x, g, state):
+        x, state = self._gd(x, g, state)
+        if state["k"] == self.at:
+            x = x + self.kick * (state["x0"] - x)
+        return x, state

@@ -144,7 +144,7 @@ def test_validation_names_the_field(tmp_path: Path, mutate, field: str) -> None:
 def test_round_trip_property(fp: list[float], lr: float) -> None:
     """Any finite fingerprint and hyperparameter survives the file format exactly."""
     c = case_record()
-    o = SeedRecord(**{**c.outcomes[0].__dict__, "fingerprint": tuple(fp), "checkpoints": ()})
+    o = SeedRecord(**{**c.outcomes[0].__dict__, "fingerprint": tuple(fp), "checkpoints": tuple(range(1, len(fp) + 1))})
     c = CaseRecord(**{**c.__dict__, "outcomes": (o,), "hyperparams": (("lr", lr),)})
     back = parse_baseline(json.loads(dumps(baseline(c))))
     assert back.cases[0] == c

@@ -31,8 +31,8 @@ def with_outcomes(c: CaseRecord, **changes) -> CaseRecord:
 
 
 def with_iters(c: CaseRecord, per_seed) -> CaseRecord:
-    """Same case, each seed's first crossings replaced (and held from there: held = None means iters)."""
-    outs = tuple(SeedRecord(**{**o.__dict__, "iters": tuple(it), "held": None}) for o, it in zip(c.outcomes, per_seed))
+    """Same case, each seed's first crossings replaced (and held from there: an empty held means iters)."""
+    outs = tuple(SeedRecord(**{**o.__dict__, "iters": tuple(it), "held": ()}) for o, it in zip(c.outcomes, per_seed))
     return CaseRecord(**{**c.__dict__, "outcomes": outs})
 
 
@@ -221,7 +221,7 @@ def test_a_candidate_that_only_dips_below_a_held_target_loses_it() -> None:
     assert "420 iterations vs baseline 400" in judge_case(base, late).reasons[0]
 
 
-def horizon(c: CaseRecord, left_at, status="reached", worst=math.nan, steps=500) -> CaseRecord:
+def horizon(c: CaseRecord, left_at, status="reached", worst=None, steps=500) -> CaseRecord:
     return with_outcomes(c, left_at=left_at, status=status, horizon_worst=worst, horizon=steps)
 
 

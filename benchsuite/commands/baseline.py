@@ -100,7 +100,7 @@ def transient_warnings(baseline: Any) -> list[str]:
     for c in baseline.cases:
         for o in c.outcomes:
             seed = f" seed {o.seed}" if len(c.outcomes) > 1 else ""
-            gone = [f"{t:.0e} (at iteration {first})" for t, first, h in zip(c.targets, o.iters, o.held_iters())
+            gone = [f"{t:.0e} (at iteration {first})" for t, first, h in zip(c.targets, o.iters, o.held)
                     if first is not None and h is None]
             if gone:
                 out.append(f"{c.instance}{seed}: met {', '.join(gone)} only transiently; the gate will not "
