@@ -67,6 +67,16 @@ def _targets_cell(checks: Sequence[TargetCheck]) -> str:
     return ", ".join(parts)
 
 
+def _targets_compact(checks: Sequence[TargetCheck]) -> str:
+    """The targets whose outcome is not "same", then how many are (for narrow terminals)."""
+    odd = [t for t in checks if t.outcome not in ("same", "unreached")]
+    rest = len(checks) - len(odd)
+    text = _targets_cell(odd)
+    if rest:
+        text += (", " if text else "") + f"{rest} as baseline"
+    return text
+
+
 def _why(v: CaseVerdict) -> str:
     return "; ".join(v.reasons or v.notes)
 
@@ -118,8 +128,13 @@ def gate_table(report: GateReport, width: int | None = None) -> str:
     ]
     for n in report.notes:
         out += textwrap.wrap(f"note: {n}", width, subsequent_indent="  ")
-    out.append("iterations to each target (held crossing): baseline/candidate")
-    out.append(_fitted_table(("verdict", "instance", "status", "iterations to target"), rows, width, (1, 3)))
+    out += textwrap.wrap("iterations to each target (held crossing): baseline/candidate", width)
+    headers = ("verdict", "instance", "status", "iterations to target")
+    text = table(headers, rows)
+    if max(len(line) for line in text.splitlines()) > width:  # narrow: only the targets that moved
+        rows = [(r[0], r[1], r[2], _targets_compact(v.targets)) for r, v in zip(rows, ordered)]
+        text = _fitted_table(headers, rows, width, (1, 3))
+    out.append(text)
     details = [v for v in ordered if v.reasons or v.notes]
     if details:
         out.append("")
@@ -128,7 +143,7 @@ def gate_table(report: GateReport, width: int | None = None) -> str:
             out += textwrap.wrap(f"{v.instance} ({v.verdict}; {_roundoff(v)}):", width, subsequent_indent="    ")
             for line in (*v.reasons, *v.notes):
                 out += textwrap.wrap(line, width, initial_indent="  - ", subsequent_indent="    ")
-    out.append(report.summary())
+    out += textwrap.wrap(report.summary(), width, subsequent_indent="  ")
     return "\n".join(out)
 
 

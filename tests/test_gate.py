@@ -600,6 +600,63 @@ def test_stochastic_case_clean_rerun_passes_and_regression_fails(tmp_path: Path)
     assert not slow.passed, gate_table_text(slow)
 
 
+@pytest.fixture(scope="module")
+def batch32(tmp_path_factory) -> dict[str, Path]:
+    """`baseline --batch 32` style records (5 seeds, envelope) of SGD and Adam on lsq-kappa1e2-500x50."""
+    from benchsuite.catalogue import load_catalogue, select
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, run_cases
+
+    (inst,) = select(load_catalogue(), "lsq-kappa1e2-500x50")
+    work = tmp_path_factory.mktemp("batch32")
+    out = {}
+    # the loose targets keep the passes short; SGD at a fixed step only reaches 1e-2 (its noise floor)
+    for rule, params, targets in (("gd", {"lr": 0.01}, (1e-2,)), ("adam", {"lr": 0.01}, (1e-2, 1e-4))):
+        spec = parse_rule(rule, params)
+        case = Case(instance=inst, rule=spec, oracle="minibatch", batch=32, seeds=(0, 1, 2, 3, 4), targets=targets)
+        results = run_cases([case], jobs=2, timing=False, progress=False, envelope=True)
+        assert all(o.iters[0] is not None for o in results[0].outcomes)
+        out[rule] = write_baseline(make_baseline(results, rule_label=spec.label), work / f"{rule}.json")
+    return out
+
+
+@pytest.mark.parametrize("rule, candidate, passes", [
+    ("gd", "gd", True),  # a clean rerun: same seeds, same minibatches, bit-identical
+    ("gd", "broken_rules:GDStepCut8", False),  # issue 8: slower on every seed, passed on lsq-kappa1e2
+    ("adam", "adam", True),
+    ("adam", "broken_rules:TextbookAdam", True),  # a clean rewrite
+    ("adam", "broken_rules:AdamStepOffByOne", False),  # issue 8: bias correction one step ahead passed --batch 32
+])
+def test_stochastic_gate_judges_seeds_in_pairs(batch32, rule: str, candidate: str, passes: bool) -> None:
+    report = run_gate(load_baseline(batch32[rule]), candidate, jobs=2)
+    assert report.passed == passes, gate_table_text(report)
+    if passes:
+        assert not report.improvements
+
+
+def test_cli_baseline_batch_skips_problems_that_are_not_finite_sums(tmp_path: Path) -> None:
+    """Issue 8 item 3: `baseline --batch` refused the default set; `run --batch` skips non-finite sums."""
+    warm_reference(tmp_path / "results" / "reference")
+    rec = _cli(tmp_path, "baseline", "--rule", "gd", "--param", "lr=0.01", "--batch", "32", "--seeds", "2",
+               "--problems", "quad-diag-kappa10-d10,lsq-kappa1e2-500x50", "--out", "b.json", "--jobs", "2")
+    assert rec.returncode == 0, rec.stderr
+    assert "skipped (not finite sums, --batch needs one): quad-diag-kappa10-d10" in rec.stdout
+    base = load_baseline(tmp_path / "b.json")
+    assert [c.instance for c in base.cases] == ["lsq-kappa1e2-500x50"] and base.cases[0].stochastic
+    assert all(o.envelope for o in base.cases[0].outcomes)  # baselines record the round-off envelope
+    none = _cli(tmp_path, "baseline", "--rule", "gd", "--batch", "32", "--problems", "quad-diag-kappa10-d10",
+                "--out", "c.json")
+    assert none.returncode == 2 and "none of the selected problems is a finite sum" in none.stderr
+
+
+def test_baseline_warns_about_transient_targets() -> None:
+    from benchsuite.commands.baseline import transient_warnings
+
+    base = held(case_record(iters_per_seed=[(10, 3338)]), [(10, None)])
+    (line,) = transient_warnings(baseline(base))
+    assert line.startswith("quad-a: met 1e-06 (at iteration 3338) only transiently; the gate will not hold")
+
+
 def gate_table_text(report) -> str:
     from benchsuite.report import gate_table
 
