@@ -13,7 +13,11 @@
    cold (the extra time of a cold run); and the monitored passes alone
    (``--no-timing``) with ``--jobs 1`` and ``--jobs 2`` (aim >= 1.8x).
 
-Run: ``.venv/bin/python benchmarks/bench_runner.py [--e2e]``. BLAS is pinned
+3. ``--phases``: the default run's parts alone -- monitored passes without and
+   with the stay-converged horizon, then the timing replays -- in wall and CPU
+   seconds (CPU seconds are steadier on a shared machine).
+
+Run: ``.venv/bin/python benchmarks/bench_runner.py [--e2e | --phases]``. BLAS is pinned
 to one thread. Timings on a shared machine are noisy; the load average is
 printed with the figures.
 """
@@ -174,10 +178,54 @@ def end_to_end() -> None:
         shutil.rmtree(work, ignore_errors=True)
 
 
+def _cpu() -> float:
+    """CPU seconds of this process and its finished children (insensitive to other processes' load)."""
+    import resource
+
+    me, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return me.ru_utime + me.ru_stime + kids.ru_utime + kids.ru_stime
+
+
+def phases() -> None:
+    """The default run's parts on the small tier: passes with and without the horizon, the replays.
+
+    Each part is reported in wall seconds and CPU seconds; on a machine shared with other
+    work the CPU seconds are the steadier figure, and ``passes CPU / 2 + replays CPU`` is what
+    the default run takes on 2 idle cores.
+    """
+    from benchsuite.runner import RunRequest, plan_cases, run_cases
+    from benchsuite.timing import timed_outcome
+
+    print(f"load average: {os.getloadavg()}")
+    figures = {}
+    for label, horizon in (("passes, no horizon", (0, 0.0)), ("passes, default horizon", None)):
+        cases = plan_cases(RunRequest.make(horizon=horizon), None).cases
+        c0, t0 = _cpu(), time.perf_counter()
+        res = run_cases(cases, jobs=2, timing=False, progress=False)
+        figures[label] = (time.perf_counter() - t0, _cpu() - c0)
+        print(f"{label:<28} {figures[label][0]:7.1f} s wall {figures[label][1]:7.1f} s CPU ({len(cases)} cases)")
+    c0, t0 = _cpu(), time.perf_counter()
+    with threadpool_limits(limits=1):
+        for r in res:
+            for o in r.outcomes:
+                timed_outcome(r.case, r.hyperparams, o, 5)
+    wall, cpu = time.perf_counter() - t0, _cpu() - c0
+    print(f"{'timing replays':<28} {wall:7.1f} s wall {cpu:7.1f} s CPU")
+    (w0, c_no), (w1, c_h) = figures["passes, no horizon"], figures["passes, default horizon"]
+    print(f"the horizon adds {100 * (c_h / c_no - 1):.0f} % to the passes' CPU time ({c_h - c_no:.1f} s)")
+    print(f"estimate for 2 idle cores: passes {c_h / 2:.1f} s + replays {cpu:.1f} s = {c_h / 2 + cpu:.1f} s")
+    print(f"load average: {os.getloadavg()}")
+
+
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--e2e", action="store_true", help="also time the default `benchsuite run` end to end")
+    p.add_argument("--phases", action="store_true",
+                   help="the default run's parts: passes with and without the horizon, the replays (CPU and wall)")
     args = p.parse_args()
+    if args.phases:
+        phases()
+        return
     with threadpool_limits(limits=1):
         overhead()
     if args.e2e:

@@ -15,7 +15,7 @@ import xml.etree.ElementTree as ET
 from collections.abc import Sequence
 from typing import Any
 
-from benchsuite.compare import CaseComparison, Comparison
+from benchsuite.compare import Change, Comparison
 from benchsuite.gate import CaseVerdict, GateReport, TargetCheck
 
 __all__ = [
@@ -281,43 +281,51 @@ def gate_json(report: GateReport) -> str:
 
 
 # ---------------------------------------------------------------- compare
-def _x(v: float | None) -> str:
-    return "-" if v is None else f"{v:.3f}"
+#: JSON schema tag of ``compare --json`` (2: signed changes with intervals, per step and to target apart)
+COMPARE_SCHEMA = "benchsuite-compare/2"
 
 
-def _ci(c: CaseComparison | Comparison) -> str:
-    return "-" if c.ci is None else f"{c.ci[0]:.3f}-{c.ci[1]:.3f}"
+def _cell(c: Change | None) -> str:
+    return "-" if c is None else c.cell()
 
 
 def _compare_rows(result: Comparison) -> list[tuple[str, ...]]:
     rows = []
     for c in result.cases:
         its = "-" if c.iters_a is None else f"{c.iters_a}/{c.iters_b}"
-        target = "steps" if c.target is None else f"{c.target:.0e}"
-        sig = "-" if c.ci is None else ("yes" if c.significant else "no")
-        rows.append((c.instance, target, its, _x(c.iter_ratio), _x(c.ratio), _ci(c), sig, _x(c.step_ratio), c.note))
+        target = "-" if c.per_step is None else ("steps" if c.target is None else f"{c.target:.0e}")
+        rows.append((c.instance, target, its, _cell(c.per_step), _cell(c.to_target), c.note))
     return rows
 
 
-_COMPARE_HEAD = ("instance", "target", "iters A/B", "iter B/A", "time B/A", "95% CI", "signif.", "step B/A", "note")
+_COMPARE_HEAD = ("instance", "target", "iters A/B", "time per step, B vs A", "time to target, B vs A", "note")
+_COMPARE_LEGEND = (
+    "changes are B's time against A's with the 95 % interval in brackets: higher / lower -- the interval "
+    "lies above / below no change; unclear -- it includes no change"
+)
 
 
 def compare_table(result: Comparison) -> str:
-    """Terminal table of a comparison: per case, then the overall line."""
-    pairs = f"; {result.repeats} pairs per case" if any(c.ci is not None for c in result.cases) else ""
-    head = f"A = {result.label_a}\nB = {result.label_b}\n{result.method}{pairs}\n"
+    """Terminal table of a comparison: per case, then the summary lines."""
+    timed = any(c.per_step is not None and c.per_step.se is not None for c in result.cases)
+    pairs = f"; {result.pairs} pairs per case" if timed else ""
+    head = f"A = {result.label_a}\nB = {result.label_b}\n{result.method}{pairs}\n{_COMPARE_LEGEND}\n"
     return head + table(_COMPARE_HEAD, _compare_rows(result)) + "\n" + result.summary()
 
 
 def compare_markdown(result: Comparison) -> str:
-    """Markdown: the overall verdict first, the per-case table folded."""
-    out = [f"## benchsuite compare: {_md_escape(result.summary())}", ""]
+    """Markdown: the headline first, the other summary lines, the per-case table folded."""
+    lines = result.summary_lines()
+    out = [f"## benchsuite compare: {_md_escape(lines[0])}", ""]
+    out += [f"- {_md_escape(line)}" for line in lines[1:]]
+    if len(lines) > 1:
+        out.append("")
     out.append(f"A = `{_md_escape(result.label_a)}`, B = `{_md_escape(result.label_b)}`. {_md_escape(result.method)}.")
     changed = [c for c in result.cases if c.iters_a is not None and c.iters_a != c.iters_b]
     if changed:
-        out += ["", f"**Iteration counts differ on {len(changed)} case(s)**: there the time ratio reflects changed "
-                "behaviour (more or fewer steps), not faster or slower steps; see the step B/A column."]
-    out += ["", f"<details><summary>{len(result.cases)} case(s)</summary>", ""]
+        out += ["", f"**Iteration counts differ on {len(changed)} case(s)**: there the time to target changes with "
+                "the rule's behaviour; the time per step is the step's own cost."]
+    out += ["", f"<details><summary>{len(result.cases)} case(s)</summary>", "", _md_escape(_COMPARE_LEGEND), ""]
     out.append("| " + " | ".join(_COMPARE_HEAD) + " |")
     out.append("|" + "---|" * len(_COMPARE_HEAD))
     out += ["| " + " | ".join(_md_escape(v) for v in row) + " |" for row in _compare_rows(result)]
@@ -325,16 +333,37 @@ def compare_markdown(result: Comparison) -> str:
     return "\n".join(out) + "\n"
 
 
+def _change_doc(c: Change | None) -> dict[str, Any] | None:
+    if c is None:
+        return None
+    iv = c.interval
+    return {
+        "ratio": c.ratio,
+        "change": c.change,
+        "interval": None if iv is None else [iv[0], iv[1]],
+        "change_interval": None if iv is None else [iv[0] - 1.0, iv[1] - 1.0],
+        "excludes_no_change": c.excludes_no_change,  # null: unknown (no interval)
+        "direction": None if iv is None else c.direction,
+        "cases": c.cases,
+    }
+
+
 def compare_json(result: Comparison) -> str:
+    v = result.verdict
     doc = {
+        "schema": COMPARE_SCHEMA,
         "a": result.label_a,
         "b": result.label_b,
         "method": result.method,
-        "repeats": result.repeats,
-        "time_ratio": result.ratio,
-        "ci": None if result.ci is None else list(result.ci),
-        "significant": result.significant,
-        "summary": result.summary(),
+        "pairs": result.pairs,
+        "process_pairs": result.process_pairs,
+        "per_step": _change_doc(result.per_step),
+        "to_target": _change_doc(result.to_target),
+        "lost": {side: [{"instance": name, "targets": list(ts)} for name, ts in cases]
+                 for side, cases in result.lost.items()},
+        "speed_limit": None if v is None else {
+            "fail_above": v.limit, "verdict": v.outcome, "exit_code": v.exit_code, "reason": v.reason},
+        "summary": result.summary_lines(),
         "cases": [
             {
                 "instance": c.instance,
@@ -344,12 +373,13 @@ def compare_json(result: Comparison) -> str:
                 "iters_a": c.iters_a,
                 "iters_b": c.iters_b,
                 "iter_ratio": c.iter_ratio,
-                "time_ratio": c.ratio,
-                "ci": None if c.ci is None else list(c.ci),
-                "significant": c.significant,
-                "step_ratio": c.step_ratio,
+                "per_step": _change_doc(c.per_step),
+                "to_target": _change_doc(c.to_target),
+                "lost_a": list(c.lost_a),
+                "lost_b": list(c.lost_b),
                 "times_a": list(c.times_a),
                 "times_b": list(c.times_b),
+                "process_pair": list(c.groups),
                 "note": c.note,
             }
             for c in result.cases

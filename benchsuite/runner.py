@@ -213,12 +213,17 @@ class RunRequest:
     budget: int | None = None
     sweep: str | None = None
     params_from: str | None = None
+    horizon: tuple[int, float] = (100, 0.5)  # stay-converged horizon: max(steps, ceil(mult x k*))
+    dtype: str | None = None               # float32 / float64 override of every instance
+    start: int | None = None               # certified starting point (1 or 2) of StRD files given by path
 
     @classmethod
     def make(cls, *, rules: Sequence[str] | str | None = None, params: Sequence[str] | Mapping[str, Any] = (),
              problems: str | None = None, tier: str | None = "small", catalogue: Sequence[str] | None = None,
              batch: int | None = None, replace: bool = True, seeds: int | None = None, budget: int | None = None,
-             sweep: str | None = None, params_from: str | None = None) -> RunRequest:
+             sweep: str | None = None, params_from: str | None = None,
+             horizon: tuple[int, float] | str | None = None, dtype: str | None = None,
+             start: int | None = None) -> RunRequest:
         """A validated request: ``UserError`` for a malformed value."""
         from benchsuite.catalogue import TIERS
         from benchsuite.rulespec import parse_param
@@ -240,9 +245,14 @@ class RunRequest:
                 raise UserError(f"{flag} must be a positive integer, got {v!r}")
         if sweep is not None:
             parse_sweep(sweep)
+        if dtype is not None and dtype not in ("float32", "float64"):
+            raise UserError(f"--dtype {dtype!r}: expected float32 or float64")
+        if start is not None and (isinstance(start, bool) or start not in (1, 2)):
+            raise UserError(f"--start {start!r}: a NIST StRD file has certified starting points 1 and 2")
         return cls(tuple(rules or ()), tuple(sorted(items)), problems, tier, tuple(str(c) for c in catalogue or ()),
                    None if batch is None else int(batch), bool(replace), None if seeds is None else int(seeds),
-                   None if budget is None else int(budget), sweep, params_from)
+                   None if budget is None else int(budget), sweep, params_from,
+                   parse_horizon(horizon), dtype, None if start is None else int(start))
 
     def to_dict(self) -> dict[str, Any]:
         return _enc(asdict(self))
@@ -253,17 +263,86 @@ class RunRequest:
         d["rules"] = tuple(d.get("rules") or ())
         d["catalogue"] = tuple(d.get("catalogue") or ())
         d["params"] = tuple((k, tuple(v) if isinstance(v, list) else v) for k, v in d.get("params") or ())
+        d["horizon"] = parse_horizon(d.get("horizon"))  # runs recorded before the horizon existed: the default
         return cls(**d)
+
+
+def parse_horizon(value: tuple[int, float] | Sequence[Any] | str | None) -> tuple[int, float]:
+    """``"100,0.5"`` or ``(100, 0.5)`` -> ``(100, 0.5)``: at least 100 steps, or 0.5 x the iterations so far."""
+    if value is None:
+        return (100, 0.5)
+    parts = value.split(",") if isinstance(value, str) else list(value)
+    try:
+        if len(parts) != 2:
+            raise ValueError
+        steps, mult = int(str(parts[0]).strip()), float(str(parts[1]).strip())
+    except ValueError:
+        raise UserError(f"--horizon {value!r}: expected STEPS,MULTIPLE (e.g. 100,0.5)") from None
+    if steps < 0 or not (0 <= mult < float("inf")):
+        raise UserError(f"--horizon {value!r}: steps and multiple must be >= 0 and finite")
+    return (steps, mult)
 
 
 @dataclass(frozen=True)
 class Plan:
-    """The cases of a request, with sweep bookkeeping and what was skipped."""
+    """The cases of a request, with sweep bookkeeping, what was skipped and notes for the user."""
 
     cases: tuple[Case, ...]
     #: case key -> (sweep group, swept value) for sweep grid points
     grid: dict[str, tuple[str, float]] = field(default_factory=dict)
     skipped: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+
+def split_rule(text: str) -> tuple[str, dict[str, Any]]:
+    """``"adam(lr=0.01, beta2=0.99)"`` -> ``("adam", {"lr": 0.01, "beta2": 0.99})``; a bare name has none.
+
+    The same form as the rule labels the tool prints, so a label can be pasted
+    back as ``--rule``. Commas inside brackets (``betas=(0.9, 0.999)``) belong
+    to the value.
+    """
+    from benchsuite.rulespec import parse_param
+
+    text = text.strip()
+    if not text.endswith(")") or "(" not in text:
+        return text, {}
+    name, inner = text[: text.index("(")].strip(), text[text.index("(") + 1 : -1]
+    parts, depth, cur = [], 0, ""
+    for ch in inner:
+        if ch in "([":
+            depth += 1
+        elif ch in ")]":
+            depth -= 1
+        if ch == "," and depth == 0:
+            parts.append(cur)
+            cur = ""
+        else:
+            cur += ch
+    if cur.strip():
+        parts.append(cur)
+    merged: list[str] = []
+    for part in parts:  # a label prints a list unbracketed (betas=0.9,0.999): rejoin its items
+        if "=" not in part and merged:
+            merged[-1] += "," + part
+        else:
+            merged.append(part)
+    parts = merged
+    params: dict[str, Any] = {}
+    for part in parts:
+        key, eq, raw = part.strip().partition("=")
+        raw = raw.strip()
+        if raw[:1] in "([" and raw[-1:] in ")]":  # a bracketed list, as in betas=(0.9, 0.999)
+            raw = raw[1:-1]
+        try:
+            k, v = parse_param(f"{key}{eq}{raw}")
+        except UserError as exc:
+            raise UserError(f"--rule {text!r}: {str(exc).split(': ', 1)[-1]}") from None
+        if k in params:
+            raise UserError(f"--rule {text!r}: {k} is given twice")
+        params[k] = v
+    if not name:
+        raise UserError(f"--rule {text!r}: no rule name before the parentheses")
+    return name, params
 
 
 def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") -> Plan:
@@ -275,11 +354,17 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
 
     cat = load_catalogue(list(req.catalogue) or None)
     instances = select(cat, req.problems, tier=req.tier, validate=True)
+    if req.start is not None:
+        instances = [_at_start(inst, req.start) for inst in instances]
     if not instances:
         raise UserError(f"no problems selected (--problems {req.problems!r}, --tier {req.tier})")
-    names = list(req.rules) or list(DEFAULT_RULES)
-    for name in names:
-        parse_rule(name)  # an unknown rule fails here, before any work
+    rules = [split_rule(r) for r in (list(req.rules) or list(DEFAULT_RULES))]
+    for name, own in rules:
+        parse_rule(name, own)  # an unknown rule fails here, before any work
+        clash = sorted(set(own) & {k for k, _ in req.params})
+        if clash:
+            raise UserError(f"--rule {name}: {', '.join(clash)} given both in the rule and in --param")
+    notes: list[str] = []
     chosen: dict[tuple[str, str], dict[str, Any]] = {}
     if req.params_from:
         from benchsuite.results import RunDir
@@ -290,6 +375,11 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
         if not meta.get("selected"):
             raise UserError(f"--params-from {req.params_from}: that run has no sweep selection")
         chosen = selection_table(meta["selected"])
+        swept_rules = {r for _, r in chosen}
+        for name, _ in rules:
+            if name not in swept_rules:
+                notes.append(f"--params-from {req.params_from}: that run did not sweep {name}; "
+                             "it runs with its own hyperparameters")
     sweep = parse_sweep(req.sweep) if req.sweep else None
     oracle = "full" if req.batch is None else "minibatch"
     seeds = (0,) if oracle == "full" else tuple(range(req.seeds or 5))
@@ -311,20 +401,30 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
     grid: dict[str, tuple[str, float]] = {}
     checked: set[Any] = set()
     for inst in instances:
-        for name in names:
-            base = {**chosen.get((inst.name, name), {}), **dict(req.params)}
+        for name, own in rules:
+            base = {**chosen.get((inst.name, name), {}), **own, **dict(req.params)}
             points = [(None, base)] if sweep is None else [(v, {**base, sweep.name: v}) for v in sweep.values]
             for value, p in points:
                 spec = parse_rule(name, p)
                 if spec not in checked:
                     build_rule(spec, None)  # hyperparameter names and values, once per spec
                     checked.add(spec)
-                case = Case(inst, spec, oracle, req.batch, req.replace, seeds, budget=req.budget)
+                case = Case(inst, spec, oracle, req.batch, req.replace, seeds, budget=req.budget,
+                            horizon=req.horizon, dtype=req.dtype)
                 cases.append(case)
                 if value is not None:
                     group = f"{inst.name} | {parse_rule(name, base).label}"
                     grid[case.key()] = (group, value)
-    return Plan(tuple(cases), grid, tuple(skipped))
+    return Plan(tuple(cases), grid, tuple(skipped), tuple(notes))
+
+
+def _at_start(inst: Any, start: int) -> Any:
+    """A StRD file given by path, at its certified starting point ``start``."""
+    from benchsuite.catalogue import instance_from_strd
+
+    if inst.family != "nist_strd" or inst.source.endswith(".toml"):
+        raise UserError(f"--start: {inst.name} is a catalogue instance; --start applies to NIST StRD files given by path")
+    return inst if dict(inst.params).get("start") == start else instance_from_strd(inst.source, start)
 
 
 def sweep_selection(plan: Plan, results: Sequence[CaseResult], sweep_name: str) -> list[dict[str, Any]]:
@@ -371,6 +471,7 @@ class RunOutcome:
     status: str
     selected: tuple[dict[str, Any], ...]
     skipped: tuple[str, ...]
+    notes: tuple[str, ...] = ()
 
 
 def _now() -> str:
@@ -464,7 +565,7 @@ def execute(
     selected = sweep_selection(plan, results, parse_sweep(req.sweep).name) if req.sweep else []
     frame = close("complete", results, selected)
     return RunOutcome(frame, tuple(results), rd.run_id if rd else None, str(rd.path) if rd else None,
-                      "complete", tuple(selected), plan.skipped)
+                      "complete", tuple(selected), plan.skipped, plan.notes)
 
 
 def _version() -> str:
@@ -486,6 +587,9 @@ def run(
     budget: int | None = None,
     sweep: str | None = None,
     params_from: str | None = None,
+    horizon: tuple[int, float] | str | None = None,
+    dtype: str | None = None,
+    start: int | None = None,
     jobs: int | None = None,
     threads: int = 1,
     repeats: int = 5,
@@ -505,7 +609,10 @@ def run(
     problems only; others are skipped) sampled with or without ``replace``;
     ``seeds``: seeds per stochastic case (default 5); ``budget``: overrides
     the instances' iteration budgets; ``sweep``: ``name=lo:hi:n``;
-    ``params_from``: a run id whose sweep selection to reuse; ``out``: the
+    ``params_from``: a run id whose sweep selection to reuse; ``horizon``: the
+    stay-converged horizon ``(steps, multiple)``; ``dtype``: ``"float32"`` or
+    ``"float64"`` for every instance; ``start``: the certified starting point
+    of StRD files given by path; ``out``: the
     results folder (run directory + history; ``None`` writes nothing);
     ``resume``: complete an interrupted run (the other arguments are then
     taken from it). Execution settings (``jobs``, ``threads``, ``repeats``,
@@ -514,6 +621,7 @@ def run(
     req = None if resume else RunRequest.make(
         rules=rules, params=params, problems=problems, tier=tier, catalogue=catalogue, batch=batch,
         replace=replace, seeds=seeds, budget=budget, sweep=sweep, params_from=params_from,
+        horizon=horizon, dtype=dtype, start=start,
     )
     return execute(req, jobs=jobs, threads=threads, repeats=repeats, timeout=timeout, timing=timing,
                    out=out, resume=resume, progress=progress).frame

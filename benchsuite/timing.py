@@ -4,11 +4,12 @@ Once the monitored pass has found ``k`` for a target, the same steps are
 replayed with the same seed and no objective evaluations -- gradient and step
 only, in a tight loop -- timed with ``time.perf_counter``. Each replay runs
 only as far as the tightest target the pass reached (``_UNREACHED_REPLAY``
-steps when it reached none). Replays are repeated: at least ``MIN_REPEATS``,
-then until either the total time passes ``_MIN_TOTAL_SECONDS`` *and* the
-interquartile range of the time to the last checkpoint is within
-``_SETTLED_IQR`` of its median, or ``repeats`` runs are done (and never more
-than ``_MAX_REPEATS`` for very short replays). Reported: the median time to
+steps when it reached none). Replays are repeated: at least ``MIN_REPEATS``
+(``MIN_REPEATS_LONG`` when one replay takes ``_LONG_SECONDS`` or more: it then
+averages over thousands of steps by itself), then until either the total time
+passes ``_MIN_TOTAL_SECONDS`` *and* the interquartile range of the time to the
+last checkpoint is within ``_SETTLED_IQR`` of its median, or ``repeats`` runs
+are done (and never more than ``_MAX_REPEATS`` for very short replays). Reported: the median time to
 each target, its spread (the interquartile range over repeats), the time per
 step (median time to the last replayed iteration divided by its count) and
 the wall-clock position of the trace points inside the replayed range (timed
@@ -39,6 +40,8 @@ __all__ = ["CLOCKS", "needs_replay", "quartiles", "replay_seconds", "replay_time
 CLOCKS: dict[str, Callable[[], float]] = {"wall": time.perf_counter, "cpu": time.process_time}
 #: at least this many replays ...
 MIN_REPEATS = 3
+#: ... or this many when one replay takes at least _LONG_SECONDS ...
+MIN_REPEATS_LONG, _LONG_SECONDS = 2, 0.05
 #: ... and until their total time reaches this (seconds) ...
 _MIN_TOTAL_SECONDS = 0.02
 #: ... and their interquartile range is within this fraction of the median ...
@@ -100,6 +103,8 @@ def replay_times(case: Case, hyperparams: Mapping[str, Any], seed: int, checkpoi
         t = _replay_once(rule, grad, x, cps)
         runs.append(t)
         total += t[-1]
+        if len(runs) == 1 and t[-1] >= _LONG_SECONDS:
+            low = min(MIN_REPEATS_LONG, repeats)
         if len(runs) < low or total < _MIN_TOTAL_SECONDS:
             continue
         if len(runs) >= repeats:

@@ -264,3 +264,67 @@ def test_replay_seconds_and_round_trip(quad) -> None:
     assert again == res
     df = to_frame([res])
     assert len(df) == len(case.run_targets) and list(df.iterations) == list(res.outcomes[0].iters)
+
+
+# -- per-rule hyperparameters and plan notes ---------------------------------------------------
+def test_split_rule_reads_the_printed_label_form() -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.runner import split_rule
+
+    assert split_rule("adam") == ("adam", {})
+    assert split_rule("adam(lr=0.01, beta2=0.99)") == ("adam", {"lr": 0.01, "beta2": 0.99})
+    assert split_rule("mod.sub:Rule(betas=(0.9, 0.999), lr=1e-3)") == ("mod.sub:Rule", {"betas": (0.9, 0.999), "lr": 1e-3})
+    # the label the tool prints round-trips
+    spec = parse_rule("adam", {"lr": 0.01, "eps": 1e-6, "betas": (0.8, 0.99)})
+    assert split_rule(spec.label) == ("adam", dict(spec.params))
+    for bad in ("adam(lr)", "adam(lr=1, lr=2)", "(lr=1)"):
+        with pytest.raises(UserError, match="--rule"):
+            split_rule(bad)
+
+
+def test_one_run_gives_different_hyperparameters_to_different_rules() -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.runner import RunRequest, plan_cases
+
+    req = RunRequest.make(rules=["adam(lr=0.01)", "gd", "rmsprop(lr=0.001)"], problems="quad-diag-kappa10-d10")
+    plan = plan_cases(req, None)
+    assert [c.rule.label for c in plan.cases] == ["adam(lr=0.01)", "gd", "rmsprop(lr=0.001)"]
+    with pytest.raises(UserError, match="both in the rule and in --param"):
+        plan_cases(RunRequest.make(rules=["adam(lr=0.01)"], params=["lr=0.1"], problems="quad-diag-kappa10-d10"), None)
+
+
+def test_request_horizon_dtype_and_start_are_validated_and_reach_the_cases(tmp_path) -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.runner import RunRequest, parse_horizon, plan_cases
+
+    assert parse_horizon(None) == (100, 0.5) and parse_horizon("10,2") == (10, 2.0) and parse_horizon([0, 0]) == (0, 0.0)
+    for bad in ("10", "a,b", "-1,0.5", "1,inf"):
+        with pytest.raises(UserError, match="--horizon"):
+            parse_horizon(bad)
+    req = RunRequest.make(rules="gd", problems="quad-diag-kappa10-d10", horizon="10,2", dtype="float32")
+    (case,) = plan_cases(req, None).cases
+    assert case.horizon == (10, 2.0) and case.dtype == "float32"
+    assert RunRequest.from_dict(req.to_dict()) == req
+    old = req.to_dict()
+    del old["horizon"], old["dtype"], old["start"]  # meta.json of a run recorded before these existed
+    assert RunRequest.from_dict(old).horizon == (100, 0.5)
+    with pytest.raises(UserError, match="--dtype"):
+        RunRequest.make(dtype="float16")
+    with pytest.raises(UserError, match="--start"):
+        RunRequest.make(start=3)
+    with pytest.raises(UserError, match="catalogue instance"):
+        plan_cases(RunRequest.make(rules="gd", problems="nist-misra1a", start=2), None)
+    # a StRD file given by path runs from its second certified start
+    dat = Path(__file__).parents[1] / "benchsuite" / "data" / "strd" / "Misra1a.dat"
+    (case,) = plan_cases(RunRequest.make(rules="gd", problems=str(dat), start=2), None).cases
+    assert case.instance.name == "Misra1a-start2" and dict(case.instance.params)["start"] == 2
+
+
+def test_progress_reaches_the_total_when_cases_fail(quad, capsys) -> None:
+    spec = lambda name: parse_rule(f"faulty_rules:{name}")  # noqa: E731
+    cases = [Case(quad, spec("Raiser")), Case(quad, spec("NaNer")), Case(quad, parse_rule("gd"))]
+    run_cases(cases, jobs=1, timing=True, repeats=2, progress=None)
+    lines = [ln for ln in capsys.readouterr().err.splitlines() if ln.startswith("benchsuite: [")]
+    # 3 cases run + 3 counted for timing (the failed ones need no replay but are still counted)
+    assert lines[-1].startswith("benchsuite: [6/6]"), lines
+    assert [int(ln.split("[")[1].split("/")[0]) for ln in lines] == list(range(1, 7))
