@@ -565,6 +565,31 @@ def test_late_blow_up_fails_naming_the_iteration(recorded) -> None:
                for r in reasons), reasons
 
 
+def test_forgotten_catalogue_advises_passing_it(recorded) -> None:
+    """Issue 9: the gate said "re-record the baseline" where --catalogue was the fix."""
+    base = load_baseline(recorded["adam"])
+    (where,) = {c.catalogue for c in base.cases if c.instance == "quad-small-gradients-kappa10-d10"}
+    assert where.endswith("examples/kestrel/problems.toml")
+    assert {c.catalogue for c in base.cases if c.instance != "quad-small-gradients-kappa10-d10"} == {"builtin"}
+    with pytest.raises(UserError) as err:
+        run_gate(base, "adam", jobs=1)
+    assert str(err.value).endswith(f"instances not in the catalogue: quad-small-gradients-kappa10-d10 "
+                                   f"(recorded from {where}: pass --catalogue {where})")
+    assert "re-record" not in str(err.value)
+
+
+def test_another_machine_is_said_not_failed(recorded) -> None:
+    from benchsuite.baseline import Baseline
+
+    base = load_baseline(recorded["gd"])
+    moved = Baseline(**{**base.__dict__, "machine": {"cpu": "Imaginary CPU 9000", "numpy": "0.0.1"}})
+    report = run_gate(moved, "gd", jobs=2)
+    assert report.passed
+    (note,) = [n for n in report.notes if "another machine" in n]
+    assert "CPU Imaginary CPU 9000 -> " in note and "numpy 0.0.1 -> " in note
+    assert not [n for n in run_gate(base, "gd", jobs=2).notes if "another machine" in n]
+
+
 def test_param_override_is_used(recorded) -> None:
     """--param replaces a recorded hyperparameter: adam at lr 0.01 is far slower than at 0.1."""
     report = run_gate(load_baseline(recorded["adam"]), "adam", ["lr=0.01"], catalogue_paths=[EXTRA], jobs=1)
