@@ -20,6 +20,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--exact", action="store_true",
                    help="also fail when the trajectory fingerprint departs from the baseline's by more than "
                         "100 x its recorded round-off envelope")
+    p.add_argument("--envelope-k", type=float, default=100.0, metavar="K",
+                   help="--exact allows K x the baseline's round-off envelope at each checkpoint (default 100)")
+    p.add_argument("--sign-alpha", type=float, default=0.05, metavar="P",
+                   help="stochastic cases: fail a shift of the seeds in one direction at sign-test p <= P (default 0.05)")
     p.add_argument("--markdown", metavar="FILE", help="write a pull-request comment in Markdown")
     p.add_argument("--junit", metavar="FILE", help="write JUnit XML (one test case per gate case)")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
@@ -36,7 +40,7 @@ def run(args: argparse.Namespace) -> int:
     from benchsuite.results import atomic_write_text
 
     config = GateConfig(slack_iters=args.slack_iters, slack_rel=args.slack_rel, noise_factor=args.noise_factor,
-                        exact=args.exact)
+                        exact=args.exact, envelope_k=args.envelope_k, sign_alpha=args.sign_alpha)
     baseline = load_baseline(args.baseline)
     report = run_gate(baseline, args.rule, args.param, config=config, jobs=args.jobs,
                       catalogue_paths=args.catalogue, timeout=args.timeout)
