@@ -14,11 +14,18 @@ reference cache (so no certified optimum is computed):
    ratio to the bare passes; and ``benchsuite gate`` end to end in a fresh
    process (imports included). Aim: under 60 s on 2 cores.
 
+3. ``--planted``: verdicts rather than time. Per rule (adam at lr 0.01 and
+   0.1, rmsprop at 0.01, gd, heavy_ball) a baseline of the small tier with the
+   envelope, then the gate, default and ``--exact``, on clean reruns, clean
+   rewrites (tests/broken_rules.py: independent implementations, another
+   operation order, ``A^T c`` summed in another order) and the planted bugs
+   there. Printed: false alarms and bugs caught, per mode.
+
 Each measurement is repeated ``--repeats`` times (default 3) and the median
 is shown with the min-max range; the load average is printed before and after,
 because on a shared machine wall-clock figures are inflated by other work.
 
-Run: ``.venv/bin/python benchmarks/bench_gate.py [--rule adam] [--jobs 2] [--repeats 3]``.
+Run: ``.venv/bin/python benchmarks/bench_gate.py [--rule adam] [--jobs 2] [--repeats 3] [--planted]``.
 """
 
 from __future__ import annotations
@@ -57,17 +64,79 @@ def _fmt(v: list[float]) -> str:
     return f"{statistics.median(v):7.2f} s (range {min(v):.2f}-{max(v):.2f})"
 
 
+_ADAM_BUGS = ("AdamNoBiasCorrection", "AdamStepOffByOne", "AdamStateReset", "AdamLateBlowUp", "AdamEpsInsideSqrt",
+              "AdamBeta2AsBeta1", "AdamLrSquared")
+#: rule, hyperparameters, clean candidates ("REORDER": the rule itself on a reordered gradient), planted bugs
+PLANTED = (
+    ("adam", {"lr": 0.01}, ("adam", "broken_rules:TextbookAdam", "REORDER"), _ADAM_BUGS),
+    ("adam", {"lr": 0.1}, ("adam", "broken_rules:TextbookAdam", "REORDER"), _ADAM_BUGS),
+    ("rmsprop", {"lr": 0.01}, ("rmsprop", "broken_rules:TextbookRMSProp", "broken_rules:RMSPropReordered", "REORDER"),
+     ("RMSPropEpsInsideSqrt", "RMSPropWrongDecay")),
+    ("gd", {}, ("gd", "REORDER"), ("GDStepCut8", "GDSlowAfter128", "GDSkipEveryHundred", "GDStepTwice")),
+    ("heavy_ball", {}, ("heavy_ball", "broken_rules:TextbookHeavyBall", "REORDER"),
+     ("HeavyBallSignError", "HeavyBallStaleBuffer")),
+)
+
+
+def planted(jobs: int) -> None:
+    """Part 3: false alarms on clean candidates and planted bugs caught, default and --exact."""
+    sys.path.insert(0, str(REPO / "tests"))
+    import broken_rules
+
+    from benchsuite.baseline import load_baseline, make_baseline, write_baseline
+    from benchsuite.catalogue import load_catalogue, select
+    from benchsuite.gate import GateConfig, run_gate
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, run_cases
+
+    insts = select(load_catalogue(), None, "small", validate=True)
+    alarms = {False: [0, 0], True: [0, 0]}  # mode -> [false alarms, clean gates]
+    caught = {False: [0, 0], True: [0, 0]}  # mode -> [caught, bugs]
+    for rule, params, clean, bugs in PLANTED:
+        spec = parse_rule(rule, params)
+        results = run_cases([Case(instance=i, rule=spec) for i in insts], jobs=jobs, timing=False, progress=False,
+                            envelope=True)
+        base = load_baseline(write_baseline(make_baseline(results, rule_label=spec.label), f"{rule}.json", force=True))
+        for exact in (False, True):
+            cfg = GateConfig(exact=exact)
+            for c in clean:
+                if c == "REORDER":
+                    with broken_rules.reordered_gradient():
+                        rep = run_gate(base, rule, config=cfg, jobs=jobs)
+                else:
+                    rep = run_gate(base, c, config=cfg, jobs=jobs)
+                alarms[exact][0] += not rep.passed
+                alarms[exact][1] += 1
+                if not rep.passed:
+                    print(f"  FALSE ALARM {spec.label} {c} {'exact' if exact else 'default'}: {rep.summary()}")
+            for b in bugs:
+                rep = run_gate(base, f"broken_rules:{b}", config=cfg, jobs=jobs)
+                caught[exact][0] += not rep.passed
+                caught[exact][1] += 1
+                mark = "caught" if not rep.passed else "missed"
+                print(f"  {spec.label:16s} {b:22s} {'exact' if exact else 'default':7s} {mark}: {rep.summary()}")
+    for exact in (False, True):
+        mode = "--exact" if exact else "default"
+        print(f"{mode:8s} false alarms {alarms[exact][0]} of {alarms[exact][1]} clean gates; "
+              f"planted bugs caught {caught[exact][0]} of {caught[exact][1]}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rule", default="adam")
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--planted", action="store_true", help="verdicts on clean rewrites and planted bugs (part 3)")
     args = ap.parse_args()
 
     work = Path(tempfile.mkdtemp(prefix="bench-gate-"))
     if (REPO / "results" / "reference").is_dir():
         shutil.copytree(REPO / "results" / "reference", work / "results" / "reference")
     os.chdir(work)
+    if args.planted:
+        planted(args.jobs)
+        shutil.rmtree(work, ignore_errors=True)
+        return
     from benchsuite.baseline import make_baseline, write_baseline
     from benchsuite.catalogue import load_catalogue, select
     from benchsuite.gate import GateConfig, run_gate
