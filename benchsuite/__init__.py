@@ -22,3 +22,7 @@ def __getattr__(name: str):  # lazy: `import benchsuite` stays light
 
         return run
     raise AttributeError(f"module 'benchsuite' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:  # `run` is listed although it is imported only when first used
+    return sorted({*globals(), *__all__})

@@ -197,17 +197,7 @@ def record_from_result(result: Any) -> CaseRecord:
 
 def catalogue_of(instance: Any) -> str:
     """``"builtin"`` for an instance of the built-in catalogue, else the file it was read from."""
-    from benchsuite.catalogue import builtin_dir
-
-    src = getattr(instance, "source", "") or ""
-    if not src:
-        return "builtin"
-    try:
-        if Path(src).resolve().parent == builtin_dir().resolve():
-            return "builtin"
-    except OSError:
-        pass
-    return src
+    return getattr(instance, "catalogue", "") or "builtin"
 
 
 def make_baseline(results: Iterable[Any], *, rule_label: str, machine: Mapping[str, Any] | None = None) -> Baseline:

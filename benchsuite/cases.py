@@ -197,6 +197,9 @@ class CaseResult:
     status: str
     #: the published rate behind ``theory_bound`` (empty when none applies)
     bound_source: str = ""
+    #: per target, the fewest iterations any gradient-span method can need on this instance
+    #: (conjugate gradients' count; ``None`` where it does not apply): a count below it is impossible
+    theory_lower: tuple[int | None, ...] = ()
 
     @property
     def timed(self) -> bool:
@@ -210,6 +213,13 @@ class CaseResult:
         return tuple(
             b is not None and any(o.iters[j] is not None and o.iters[j] > b for o in self.outcomes)
             for j, b in enumerate(self.theory_bound)
+        )
+
+    def below_lower(self) -> tuple[bool, ...]:
+        """Per target: some seed needed fewer iterations than the lower bound allows (a measurement error)."""
+        return tuple(
+            b is not None and any(o.iters[j] is not None and o.iters[j] < b for o in self.outcomes)
+            for j, b in enumerate(self.theory_lower)
         )
 
 
@@ -256,6 +266,7 @@ def result_to_dict(r: CaseResult) -> dict[str, Any]:
         "hyperparams": r.hyperparams,
         "theory_bound": list(r.theory_bound),
         "bound_source": r.bound_source,
+        "theory_lower": list(r.theory_lower),
         "status": r.status,
         "outcomes": outs,
     })
@@ -295,5 +306,6 @@ def result_from_dict(case: Case, d: Mapping[str, Any], traces: Mapping[int, Trac
             trace=traces.get(seed),
         ))
     hp = {k: tuple(v) if isinstance(v, list) else v for k, v in d["hyperparams"].items()}
-    return CaseResult(case, hp, tuple(outs), tuple(d["theory_bound"]), d["status"], d.get("bound_source", ""))
+    return CaseResult(case, hp, tuple(outs), tuple(d["theory_bound"]), d["status"], d.get("bound_source", ""),
+                      tuple(d.get("theory_lower") or ()))
 

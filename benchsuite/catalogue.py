@@ -5,7 +5,7 @@ Each catalogue file holds ``[[instance]]`` tables (see DEVELOPERS.md)::
     [[instance]]
     name = "quad-diag-kappa100-d50"   # required, unique over all files
     family = "quadratic"              # required: built-in short name or module:Class
-    targets = [1e-2, 1e-4, 1e-6]      # required: strictly decreasing, all > 0
+    targets = [1e-2, 1e-4, 1e-6]      # required: strictly decreasing, all in (0, 1)
     budget = 2000                     # required: iteration budget, integer > 0
     tier = "small"                    # small | medium | large (default small)
     measure = "subopt"                # subopt | dist | gradnorm (default subopt)
@@ -57,6 +57,8 @@ __all__ = [
 TIERS = ("small", "medium", "large")
 MEASURES = ("subopt", "dist", "gradnorm")
 ENV_VAR = "BENCHSUITE_CATALOGUE"
+#: :attr:`Instance.catalogue` of the shipped catalogue's instances
+BUILTIN = "builtin"
 
 _REQUIRED = ("name", "family", "targets", "budget")
 _OPTIONAL = ("tier", "measure", "x_tol", "params")
@@ -98,6 +100,14 @@ class Instance:
     measure: str = "subopt"
     x_tol: float = 1e-3
     source: str = ""
+    #: where the instance came from: ``"builtin"`` (the shipped catalogue), the
+    #: catalogue file or StRD ``.dat`` path as given, or ``""`` (made in code)
+    catalogue: str = ""
+
+    @property
+    def builtin(self) -> bool:
+        """Whether the instance is one of the shipped catalogue's."""
+        return self.catalogue == BUILTIN
 
     def params_dict(self) -> dict[str, Any]:
         """The parameters as keyword arguments (tuples back to lists)."""
@@ -235,7 +245,7 @@ def _check_param_value(where: str, value: Any) -> None:
         raise UserError(f"{where}: value must be finite, got {value!r}")
 
 
-def _parse_entry(src: str, index: int, entry: Any) -> Instance:
+def _parse_entry(src: str, index: int, entry: Any, origin: str = "") -> Instance:
     label = f"{src}: instance #{index + 1}"
     if not isinstance(entry, dict):
         raise UserError(f"{label}: expected a table ([[instance]]), got {_type_name(entry)}")
@@ -263,8 +273,11 @@ def _parse_entry(src: str, index: int, entry: Any) -> Instance:
     if not targets:
         raise UserError(f"{label}.targets: must not be empty")
     for t in targets:
-        if isinstance(t, bool) or not isinstance(t, (int, float)) or not math.isfinite(t) or t <= 0:
-            raise UserError(f"{label}.targets: every target must be a finite number > 0, got {t!r}")
+        if isinstance(t, bool) or not isinstance(t, (int, float)) or not math.isfinite(t) or not 0 < t < 1:
+            raise UserError(
+                f"{label}.targets: every target must be a number > 0 and < 1 (the measures are relative, "
+                f"1 at the start), got {t!r}"
+            )
     if any(b >= a for a, b in zip(targets, targets[1:])):
         raise UserError(f"{label}.targets: must be strictly decreasing, got {targets!r}")
     budget = want("budget", (int,), "an integer")
@@ -293,6 +306,7 @@ def _parse_entry(src: str, index: int, entry: Any) -> Instance:
         measure=measure,
         x_tol=x_tol,
         source=src,
+        catalogue=origin,
     )
     cls = inst.family_class()
     unknown = _unknown_params(cls, params)
@@ -301,7 +315,7 @@ def _parse_entry(src: str, index: int, entry: Any) -> Instance:
     return inst
 
 
-def _read_file(path: Path) -> list[Instance]:
+def _read_file(path: Path, origin: str = "") -> list[Instance]:
     src = _display(path)
     try:
         with path.open("rb") as fh:
@@ -316,7 +330,9 @@ def _read_file(path: Path) -> list[Instance]:
     entries = doc.get("instance", [])
     if not isinstance(entries, list):
         raise UserError(f"{src}: 'instance' must be an array of tables ([[instance]])")
-    return [_parse_entry(src, i, e) for i, e in enumerate(entries)]
+    if not entries:
+        raise UserError(f"{src}: no [[instance]] table: the catalogue file defines no instance")
+    return [_parse_entry(src, i, e, origin) for i, e in enumerate(entries)]
 
 
 def load_catalogue(paths: Sequence[str | Path] | None = None) -> dict[str, Instance]:
@@ -326,22 +342,25 @@ def load_catalogue(paths: Sequence[str | Path] | None = None) -> dict[str, Insta
     ``BENCHSUITE_CATALOGUE``, then ``paths``. A name defined twice is an error
     naming both files.
     """
-    roots: list[Path] = []
+    roots: list[tuple[Path, bool]] = []
     builtin = builtin_dir()
     if builtin.is_dir():
-        roots.append(builtin)
+        roots.append((builtin, True))
     env = os.environ.get(ENV_VAR, "")
-    roots += [Path(p) for p in env.split(os.pathsep) if p.strip()]
-    roots += [Path(p) for p in (paths or ())]
+    roots += [(Path(p), False) for p in env.split(os.pathsep) if p.strip()]
+    roots += [(Path(p), False) for p in (paths or ())]
     seen_files: set[Path] = set()
     out: dict[str, Instance] = {}
-    for root in roots:
-        for f in _files(root):
+    for root, shipped in roots:
+        files = _files(root)
+        if not files and not shipped:
+            raise UserError(f"{root}: no catalogue files (*.toml) in this folder")
+        for f in files:
             key = f.resolve()
             if key in seen_files:
                 continue
             seen_files.add(key)
-            for inst in _read_file(f):
+            for inst in _read_file(f, BUILTIN if shipped else str(f)):
                 if inst.name in out:
                     raise UserError(
                         f"{inst.source}: [{inst.name}].name: duplicate instance name, "
@@ -362,7 +381,7 @@ def _looks_like_path(text: str) -> bool:
 
 def select(
     catalogue: Mapping[str, Instance], selector: str | None = None, tier: str | None = "small",
-    *, validate: bool = False,
+    *, validate: bool = False, option: str = "--problems", tier_option: str = "--tier",
 ) -> list[Instance]:
     """Instances chosen by a selector.
 
@@ -374,17 +393,22 @@ def select(
     repeats. An unknown name raises :class:`UserError` listing close matches.
     ``validate=True`` also builds each chosen instance, so that impossible
     parameters are reported (one line, with the location) before any work.
+    ``option`` and ``tier_option`` are how the caller's user gave the selector
+    and the tier (``--problems`` and ``--tier`` on the command line; an
+    argument name elsewhere): error messages start with them.
     """
-    chosen = _select(catalogue, selector, tier)
+    chosen = _select(catalogue, selector, tier, option, tier_option)
     if validate:
         for inst in chosen:
             inst.build()
     return chosen
 
 
-def _select(catalogue: Mapping[str, Instance], selector: str | None, tier: str | None) -> list[Instance]:
+def _select(
+    catalogue: Mapping[str, Instance], selector: str | None, tier: str | None, option: str, tier_option: str
+) -> list[Instance]:
     if tier is not None and tier not in TIERS:
-        raise UserError(f"--tier: unknown tier {tier!r} (one of {', '.join(TIERS)})")
+        raise UserError(f"{tier_option}: unknown tier {tier!r} (one of {', '.join(TIERS)})")
 
     def in_tier(inst: Instance) -> bool:
         return tier is None or inst.tier == tier
@@ -400,10 +424,12 @@ def _select(catalogue: Mapping[str, Instance], selector: str | None, tier: str |
         elif _is_glob(part):
             hits = [i for n, i in catalogue.items() if fnmatch.fnmatchcase(n, part)]
             if not hits:
-                raise UserError(f"--problems: {part!r} matches no instance")
+                raise UserError(f"{option}: {part!r} matches no instance")
             hits_tier = [i for i in hits if in_tier(i)]
             if not hits_tier:
-                raise UserError(f"--problems: {part!r} matches no instance of tier {tier!r} ({len(hits)} in other tiers)")
+                raise UserError(
+                    f"{option}: {part!r} matches no instance of tier {tier!r} ({len(hits)} in other tiers)"
+                )
             for i in hits_tier:
                 chosen.setdefault(i.name, i)
         elif Path(part).is_file() or _looks_like_path(part):
@@ -412,7 +438,7 @@ def _select(catalogue: Mapping[str, Instance], selector: str | None, tier: str |
         else:
             close = difflib.get_close_matches(part, list(catalogue), n=5, cutoff=0.5)
             hint = f"; close matches: {', '.join(close)}" if close else ""
-            raise UserError(f"--problems: unknown instance {part!r}{hint}")
+            raise UserError(f"{option}: unknown instance {part!r}{hint}")
     return list(chosen.values())
 
 
@@ -438,6 +464,7 @@ def instance_from_strd(path: str | Path, start: int = 1) -> Instance:
         budget=_STRD_BUDGET,
         measure="subopt",
         source=str(path),
+        catalogue=str(path),
     )
     inst.build()  # reads and parses the file: bad files fail here, with their location
     return inst

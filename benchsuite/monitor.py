@@ -364,8 +364,10 @@ def build_rule_for(case: Case, b: Built, params: Mapping[str, Any] | None = None
     return build_rule(spec, b.constants, dtype=b.problem.dtype)
 
 
-def _theory(case: Case, b: Built, hyperparams: Mapping[str, Any]) -> tuple[tuple[int | None, ...], str]:
-    from benchsuite.theory import applicable_bound, theory_iterations
+def _theory(case: Case, b: Built, hyperparams: Mapping[str, Any]) -> tuple[tuple[int | None, ...], str,
+                                                                          tuple[int | None, ...]]:
+    """The published upper bound per target (and its source), and the Krylov lower bound per target."""
+    from benchsuite.theory import applicable_bound, lower_bound_iterations, theory_iterations
 
     bound = applicable_bound(
         case.rule.name,
@@ -374,9 +376,12 @@ def _theory(case: Case, b: Built, hyperparams: Mapping[str, Any]) -> tuple[tuple
         family=b.problem.family,
         oracle=case.oracle,
         measure=case.run_measure,
+        dtype=b.problem.dtype,
     )
     its = theory_iterations(bound, case.run_targets)
-    return its, (f"{bound.formula} ({bound.source})" if bound else "")
+    lower = lower_bound_iterations(case.rule.name, b.problem, case.run_targets, measure=case.run_measure,
+                                   oracle=case.oracle)
+    return its, (f"{bound.formula} ({bound.source})" if bound else ""), tuple(lower)
 
 
 @dataclass(frozen=True)
@@ -397,6 +402,7 @@ class PassReport:
     hyperparams: dict[str, Any]
     theory_bound: tuple[int | None, ...]
     bound_source: str
+    theory_lower: tuple[int | None, ...] = ()
 
 
 def failed_outcome(case: Case, seed: int, status: str, message: str, iterations: int = 0) -> SeedOutcome:
@@ -439,7 +445,7 @@ def run_pass(task: PassTask, ready: Callable[[], None] | None = None, progress: 
     try:
         b = built(case.instance, dtype=case.dtype)
         br = build_rule_for(case, b)
-        bound, source = _theory(case, b, br.hyperparams)
+        bound, source, lower = _theory(case, b, br.hyperparams)
     except Exception as exc:  # UserError from a rule or family, a failed certification, ...
         msg = str(exc) if isinstance(exc, UserError) else f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}"
         if ready is not None:
@@ -460,4 +466,4 @@ def run_pass(task: PassTask, ready: Callable[[], None] | None = None, progress: 
             outcome = replace(outcome, envelope=envelope_of(outcome, shadows))
     except Exception as exc:  # e.g. rule.init raised outside the loop, or a zero measure scale
         outcome = failed_outcome(case, seed, "error", f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}")
-    return PassReport(outcome, dict(br.hyperparams), bound, source)
+    return PassReport(outcome, dict(br.hyperparams), bound, source, lower)

@@ -46,7 +46,16 @@ allows a relative error ``sqrt(eps * L/mu)`` in ``x``. Without a known
 looser than :data:`X_TOL_MAX`. ``agreement_digits`` is ``-log10`` of the
 largest relative difference (x or f) over all pairs of agreeing routes.
 
-Cache: ``<cache_dir or ./results/reference>/<name>-<key12>.json``, where the
+Cache: ``<folder>/<name>-<key12>.json``. New entries go to ``cache_dir`` when
+given, else to ``./results/reference`` for an instance of the built-in
+catalogue (in the source tree that is the committed cache) and to the user's
+cache folder (:func:`user_cache_dir`: ``$BENCHSUITE_CACHE_DIR``, else
+``$XDG_CACHE_HOME/benchsuite``, else ``~/.cache/benchsuite``, then
+``reference/``) for anything else (the user's catalogue files, StRD files given
+by path), so that a user's optima never mix with the committed ones. Entries
+are looked up in ``./results/reference``, the committed cache and the user's
+cache folder, in that order. The
+key hashes the instance's ``problem_hash`` (which covers the content of any
 key hashes the instance's ``problem_hash`` (which covers the content of any
 data file the problem reads, see ``Problem.data_digest``), the versions of numpy / scipy / cvxpy / Clarabel / SCS and
 the certificate format. Plain JSON (floats by ``repr``, exact round trip);
@@ -58,6 +67,7 @@ stale.
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import hashlib
 import json
@@ -86,6 +96,7 @@ __all__ = [
     "cached_entry",
     "certified_optimum",
     "default_cache_dir",
+    "user_cache_dir",
 ]
 
 FORMAT = 2  # bump when the routes or the tolerances change: old entries are then recomputed
@@ -174,20 +185,42 @@ class Optimum:
 
 
 # -- cache location and key ----------------------------------------------------
-def default_cache_dir() -> Path:
-    """Where new entries go: ``./results/reference``."""
-    return Path("results") / "reference"
+#: environment variable naming the user's cache folder (optima go to its ``reference/``)
+CACHE_ENV = "BENCHSUITE_CACHE_DIR"
+
+
+def user_cache_dir() -> Path:
+    """The user's cache folder for optima of instances outside the built-in catalogue.
+
+    ``$BENCHSUITE_CACHE_DIR/reference``, else ``$XDG_CACHE_HOME/benchsuite/reference``,
+    else ``~/.cache/benchsuite/reference`` (the XDG default). Nothing is created here.
+    """
+    root = os.environ.get(CACHE_ENV, "").strip()
+    if root:
+        return Path(root).expanduser() / "reference"
+    xdg = os.environ.get("XDG_CACHE_HOME", "").strip()
+    base = Path(xdg).expanduser() if xdg and Path(xdg).is_absolute() else Path.home() / ".cache"
+    return base / "benchsuite" / "reference"
+
+
+def default_cache_dir(instance: Instance | None = None) -> Path:
+    """Where a new entry goes without ``cache_dir``: ``./results/reference`` for an
+    instance of the built-in catalogue (or ``instance=None``), else :func:`user_cache_dir`."""
+    if instance is None or instance.builtin:
+        return Path("results") / "reference"
+    return user_cache_dir()
 
 
 def _lookup_dirs(cache_dir: Path | None) -> list[Path]:
-    """Folders searched for an entry: the given one; by default ``./results/reference``
-    and then the committed ``results/reference`` (of the source tree, or the copy a wheel installs)."""
+    """Folders searched for an entry: the given one; by default ``./results/reference``, the
+    committed ``results/reference`` (of the source tree, or the copy a wheel installs), then the
+    user's cache folder."""
     if cache_dir is not None:
         return [Path(cache_dir)]
     import benchsuite
 
     package = Path(benchsuite.__file__).resolve().parent
-    dirs = [default_cache_dir(), package.parent / "results" / "reference", package / "_reference"]
+    dirs = [default_cache_dir(), package.parent / "results" / "reference", package / "_reference", user_cache_dir()]
     out: list[Path] = []
     for d in dirs:
         if d.is_dir() and all(d.resolve() != o.resolve() for o in out):
@@ -222,7 +255,7 @@ def cache_key(instance: Instance) -> str:
 
 def cache_path(instance: Instance, cache_dir: Path | None = None) -> Path:
     safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in instance.name)
-    return Path(cache_dir or default_cache_dir()) / f"{safe}-{cache_key(instance)[:12]}.json"
+    return Path(cache_dir or default_cache_dir(instance)) / f"{safe}-{cache_key(instance)[:12]}.json"
 
 
 # -- small numerical helpers -----------------------------------------------------
@@ -277,10 +310,15 @@ def _route_least_squares(problem: ResidualProblem, x0: np.ndarray, method: str) 
     label = f"scipy least_squares {method}"
     t = time.perf_counter()
     try:
-        res = least_squares(
-            problem.residuals, x0, jac=problem.jacobian, method=method,
-            xtol=1e-15, ftol=1e-15, gtol=1e-15, x_scale="jac", max_nfev=20000 * max(1, problem.dim),
-        )
+        # a trial step far out (e.g. NIST MGH17's exponentials from start 1) can overflow the
+        # residuals or their sum of squares; trf then sees a non-finite cost and shrinks its trust
+        # region, lm rejects the step: expected and handled, so numpy's overflow warning is silenced
+        # here only (a non-finite final x is still a failed route, see _make_route)
+        with np.errstate(over="ignore"):
+            res = least_squares(
+                problem.residuals, x0, jac=problem.jacobian, method=method,
+                xtol=1e-15, ftol=1e-15, gtol=1e-15, x_scale="jac", max_nfev=20000 * max(1, problem.dim),
+            )
     except Exception as exc:  # e.g. lm needs m >= n
         return _failed(label, "scipy", exc, time.perf_counter() - t)
     status = f"status {res.status}: {res.message}"
@@ -806,7 +844,22 @@ def _load(instance: Instance, problem: Problem | None, path: Path, key: str) -> 
         scale = max(abs(opt.f_star), opt.f0 - opt.f_star, np.finfo(float).tiny)
         if not abs(f - opt.f_star) <= EPS_F["exact"] * scale:  # stale: the family's objective changed
             return None
-    return opt
+    return _current_labels(opt, problem)
+
+
+def _current_labels(opt: Optimum, problem: Problem) -> Optimum:
+    """``opt`` with the published source and note as the family words them now.
+
+    The labels are not part of the cache key (they do not change the optimum),
+    so an entry written before a family reworded its citation keeps the old
+    wording; the output names the publication as the code does.
+    """
+    pub = problem.published()
+    old = opt.published
+    if pub is None or old is None or (pub.source, pub.note) == (old.source, old.note):
+        return opt
+    how = opt.how.replace(f"({old.source})", f"({pub.source})") if old.source else opt.how
+    return dataclasses.replace(opt, published=dataclasses.replace(old, source=pub.source, note=pub.note), how=how)
 
 
 def certified_optimum(
@@ -814,9 +867,10 @@ def certified_optimum(
 ) -> Optimum:
     """The certified optimum of ``instance``, from the cache or computed (and cached).
 
-    Without ``cache_dir`` an entry is looked up in ``./results/reference`` and
-    then in the repository's committed ``results/reference``; new entries are
-    written to ``./results/reference``.
+    Without ``cache_dir`` an entry is looked up in ``./results/reference``, the
+    repository's committed ``results/reference`` and the user's cache folder; a
+    new entry is written to ``./results/reference`` for a built-in instance and
+    to :func:`user_cache_dir` for any other (see the module docstring).
 
     ``problem`` may pass an already built float64 problem to save building it
     again. ``refresh`` recomputes even when a cache entry exists.

@@ -11,13 +11,24 @@ enough. In a test file::
     def test_my_adam_meets_the_baseline():
         assert_meets_baseline("mypkg.optim:MyAdam", "results/baselines/my-adam.json")
 
-or through the ``benchsuite`` fixture (``benchsuite.converges(...)``,
-``benchsuite.meets_baseline(...)``). A failure raises ``AssertionError`` whose
-message lists each failing case and why.
+or through the ``convergence_checks`` fixture (``convergence_checks.converges(...)``,
+``convergence_checks.meets_baseline(...)``).
+
+Relative paths (the baseline file, ``catalogue=`` files) are taken relative to
+the folder of the file that calls the helper -- your test file -- so
+``pytest sub/test_x.py`` works from any folder; absolute paths are used as
+given.
+
+A rule that fails raises ``AssertionError`` whose message lists each failing
+case and why. A configuration mistake (an unknown rule, problem or tier, a
+hyperparameter the rule does not take or of the wrong kind, a missing or
+malformed baseline or catalogue file) raises :class:`ConfigurationError`
+before anything runs: it is a mistake in the test, not a finding about the rule.
 """
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from types import SimpleNamespace
@@ -25,11 +36,47 @@ from typing import Any
 
 import pytest
 
-__all__ = ["assert_conforms", "assert_converges", "assert_meets_baseline", "benchsuite"]
+from benchsuite.errors import UserError
+
+__all__ = ["ConfigurationError", "assert_conforms", "assert_converges", "assert_meets_baseline", "convergence_checks"]
+
+
+class ConfigurationError(UserError, pytest.UsageError):
+    """A mistake in how a test calls a helper (rule, hyperparameter, problem, file): not a rule failure."""
+
+
+def _caller_folder() -> Path:
+    """The folder of the file that called the public helper (two frames up), else the current one."""
+    try:
+        name = sys._getframe(2).f_code.co_filename
+    except ValueError:  # pragma: no cover - called from the top of the stack
+        return Path.cwd()
+    path = Path(name)
+    return path.resolve().parent if path.is_file() else Path.cwd()
+
+
+def _resolve(path: str | Path, base: Path) -> Path:
+    p = Path(path).expanduser()
+    return p if p.is_absolute() else base / p
 
 
 def _fmt_iters(targets: Sequence[float], iters: Sequence[int | None]) -> str:
     return ", ".join(f"{t:.0e} at {'-' if k is None else k}" for t, k in zip(targets, iters))
+
+
+def _why(o: Any, targets: Sequence[float]) -> str:
+    """One failing seed: errors and timeouts say what happened, the others how far they got."""
+    if o.status == "error":
+        last = ((o.error or "").strip().splitlines() or ["(no message)"])[-1]
+        for prefix in ("benchsuite.errors.UserError: ", "UserError: "):  # its message says it all
+            last = last.removeprefix(prefix)
+        return "error: " + last
+    why = f"{o.status} after {o.iterations_run} iterations"
+    if o.error:
+        why += f" ({(o.error.strip().splitlines() or [''])[-1]})"
+    if o.status == "timeout":
+        return why
+    return f"{why}; targets: {_fmt_iters(targets, o.iters)}; final measure {o.final_measure:.3g}"
 
 
 def assert_converges(
@@ -46,21 +93,30 @@ def assert_converges(
     """Fail unless ``rule`` reaches every target of every selected problem within budget.
 
     ``problems`` is a catalogue selector (names or globs, comma-separated);
-    returns the runner's results when all cases reached all targets.
+    ``catalogue`` adds catalogue files (relative to the calling test file's
+    folder). Returns the runner's results when all cases reached all targets.
+    Raises :class:`ConfigurationError` for a mistake in the arguments.
     """
     __tracebackhide__ = True
     from benchsuite.catalogue import load_catalogue, select
-    from benchsuite.errors import UserError
-    from benchsuite.rulespec import parse_rule
+    from benchsuite.rulespec import build_rule, parse_rule
     from benchsuite.runner import Case, run_cases
 
-    spec = parse_rule(rule, dict(params or {}))
-    instances = select(load_catalogue(list(catalogue) or None), problems, tier, validate=True)
-    if not instances:
-        raise UserError(f"assert_converges: selector {problems!r} chose no problem")
-    oracle = "full" if batch is None else "minibatch"
-    cases = [Case(instance=i, rule=spec, oracle=oracle, batch=batch, seeds=tuple(range(seeds))) for i in instances]
-    results = run_cases(cases, jobs=jobs, timing=False, progress=False)
+    base = _caller_folder()
+    try:
+        spec = parse_rule(rule, dict(params or {}))
+        cat = load_catalogue([_resolve(c, base) for c in catalogue] or None)
+        # errors name the arguments the test gave ("problems: unknown instance ..."), not --problems
+        instances = select(cat, problems, tier, validate=True, option="problems", tier_option="tier")
+        if not instances:
+            raise UserError(f"problems={problems!r}, tier={tier!r}: chose no problem")
+        first = instances[0].build()
+        build_rule(spec, first.constants(), dtype=first.dtype)  # hyperparameter names, kinds, the factory
+        oracle = "full" if batch is None else "minibatch"
+        cases = [Case(instance=i, rule=spec, oracle=oracle, batch=batch, seeds=tuple(range(seeds))) for i in instances]
+        results = run_cases(cases, jobs=jobs, timing=False, progress=False)
+    except UserError as exc:
+        raise ConfigurationError(f"assert_converges: {exc}") from None
     lines = []
     for r in results:
         if r.status == "reached":
@@ -69,13 +125,7 @@ def assert_converges(
         for o in r.outcomes:
             if o.status == "reached":
                 continue
-            why = f"{o.status} after {o.iterations_run} iterations"
-            if o.error:
-                why += f" ({(o.error.strip().splitlines() or [''])[-1]})"
-            lines.append(
-                f"  {r.case.instance.name} seed {o.seed}: {why}; targets: {_fmt_iters(targets, o.iters)}; "
-                f"final measure {o.final_measure:.3g}"
-            )
+            lines.append(f"  {r.case.instance.name} seed {o.seed}: {_why(o, targets)}")
     if lines:
         raise AssertionError(
             f"{spec.label} did not converge on {len(lines)} of {sum(len(r.outcomes) for r in results)} case(s):\n"
@@ -98,16 +148,23 @@ def assert_meets_baseline(
 ) -> Any:
     """Fail unless ``rule`` passes the merge gate against the ``baseline`` file.
 
-    ``params`` override recorded hyperparameters; the slack options are those
-    of ``benchsuite gate``. Returns the :class:`~benchsuite.gate.GateReport`.
+    ``baseline`` and ``catalogue`` files are relative to the calling test
+    file's folder. ``params`` override recorded hyperparameters; the slack
+    options are those of ``benchsuite gate``. Returns the
+    :class:`~benchsuite.gate.GateReport`. Raises :class:`ConfigurationError`
+    for a mistake in the arguments or the files.
     """
     __tracebackhide__ = True
     from benchsuite.baseline import load_baseline
     from benchsuite.gate import GateConfig, run_gate
 
-    config = GateConfig(slack_iters=slack_iters, slack_rel=slack_rel, noise_factor=noise_factor, exact=exact)
-    report = run_gate(load_baseline(baseline), rule, dict(params or {}), config=config, jobs=jobs,
-                      catalogue_paths=catalogue)
+    base = _caller_folder()
+    try:
+        config = GateConfig(slack_iters=slack_iters, slack_rel=slack_rel, noise_factor=noise_factor, exact=exact)
+        report = run_gate(load_baseline(_resolve(baseline, base)), rule, dict(params or {}), config=config,
+                          jobs=jobs, catalogue_paths=[_resolve(c, base) for c in catalogue])
+    except UserError as exc:
+        raise ConfigurationError(f"assert_meets_baseline: {exc}") from None
     if not report.passed:
         lines = [f"  {v.key}: {'; '.join(v.reasons)}" for v in report.failures]
         raise AssertionError(f"{rule} against {baseline}: {report.summary()}\n" + "\n".join(lines))
@@ -115,10 +172,9 @@ def assert_meets_baseline(
 
 
 @pytest.fixture
-def benchsuite() -> SimpleNamespace:
-    """``benchsuite.converges(...)`` and ``benchsuite.meets_baseline(...)`` (see the module docstring)."""
+def convergence_checks() -> SimpleNamespace:
+    """``convergence_checks.converges(...)`` and ``.meets_baseline(...)``: the two helpers (module docstring)."""
     return SimpleNamespace(converges=assert_converges, meets_baseline=assert_meets_baseline)
-
 
 
 def assert_conforms(
@@ -135,14 +191,20 @@ def assert_conforms(
 
     ``params`` are the rule's hyperparameters in its own names (torch-style
     ``betas=(0.9, 0.999)`` is mapped); see :mod:`benchsuite.conformance`.
-    Returns the :class:`~benchsuite.conformance.ConformanceReport`.
+    ``catalogue`` files are relative to the calling test file's folder.
+    Returns the :class:`~benchsuite.conformance.ConformanceReport`. Raises
+    :class:`ConfigurationError` for a mistake in the arguments.
     """
     __tracebackhide__ = True
     from benchsuite.conformance import DEFAULT_STEPS, check_conformance
 
-    report = check_conformance(rule, method, dict(params or {}), problems=problems,
-                               steps=DEFAULT_STEPS if steps is None else steps, convention=convention,
-                               catalogue=[str(c) for c in catalogue])
+    base = _caller_folder()
+    try:
+        report = check_conformance(rule, method, dict(params or {}), problems=problems,
+                                   steps=DEFAULT_STEPS if steps is None else steps, convention=convention,
+                                   catalogue=[str(_resolve(c, base)) for c in catalogue])
+    except UserError as exc:
+        raise ConfigurationError(f"assert_conforms: {exc}") from None
     if not report.conforms:
         lines = [f"  {c.instance}: {c.describe()}" for c in report.cases if not c.conforms]
         raise AssertionError(report.summary() + "\n" + "\n".join(lines))

@@ -30,13 +30,16 @@ joined with their run as a DataFrame.
 from __future__ import annotations
 
 import contextlib
+import fnmatch
 import hashlib
 import json
+import math
 import os
 import re
 import secrets
 import sqlite3
 import tempfile
+import threading
 import time
 from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
@@ -54,7 +57,10 @@ __all__ = [
     "atomic_write_json",
     "atomic_write_text",
     "history_path",
+    "json_records",
+    "json_value",
     "new_run_id",
+    "parse_since",
     "query_history",
     "record_history",
 ]
@@ -87,6 +93,8 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "left_at",
     "theory_bound",
     "bound_violated",
+    "theory_lower",
+    "below_lower",
     "budget",
     "selected",
 )
@@ -95,12 +103,30 @@ _RUN_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
 # -- atomic writes ------------------------------------------------------------
+_UMASK_LOCK = threading.Lock()
+
+
+def _umask() -> int:
+    """The process's umask (read by setting and restoring it, under a lock)."""
+    with _UMASK_LOCK:
+        mask = os.umask(0o022)
+        os.umask(mask)
+    return mask
+
+
 def atomic_write_bytes(path: str | Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically (temp file in the same folder + ``os.replace``)."""
+    """Write ``data`` to ``path`` atomically (temp file in the same folder + ``os.replace``).
+
+    The file gets the permissions the umask gives a new file (``0o666 & ~umask``),
+    like a file written with ``open(path, "w")``.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        # mkstemp creates the file 0600; give it the mode a plain open() would (0644 under umask 022)
+        with contextlib.suppress(AttributeError, OSError):  # os.fchmod: POSIX only
+            os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()
@@ -259,6 +285,8 @@ _SQL_TYPES = {
     "iterations_run": "INTEGER",
     "theory_bound": "INTEGER",
     "bound_violated": "INTEGER",
+    "theory_lower": "INTEGER",
+    "below_lower": "INTEGER",
     "replace": "INTEGER",
     "budget": "INTEGER",
     "selected": "INTEGER",
@@ -329,6 +357,42 @@ def record_history(db: str | Path, run_id: str, meta: Mapping[str, Any], rows: S
         )
 
 
+def _glob(name: str | None, pattern: str) -> int:
+    """SQL function ``glob_match(value, pattern)``: the shell-style match ``--problems`` uses."""
+    return int(name is not None and fnmatch.fnmatchcase(name, pattern))
+
+
+def parse_since(text: str) -> str:
+    """An ISO date or date/time as the string compared with a run's ``started`` (UTC, to the second).
+
+    ``2026-03-12`` (that whole day onwards), ``2026-03-12T14:30``,
+    ``2026-03-12 14:30:05``, ``2026-03-12T14:30+01:00`` (converted to UTC; a time
+    without an offset is taken as UTC, as runs record it). Anything else is a
+    :class:`UserError`.
+    """
+    import datetime as dt
+
+    s = str(text).strip()
+    try:
+        if len(s) <= 10 and "T" not in s and " " not in s:
+            return dt.date.fromisoformat(s).isoformat()
+        when = dt.datetime.fromisoformat(s)
+    except ValueError:
+        raise UserError(f"--since {text!r}: expected an ISO date or date/time, e.g. 2026-03-12 or "
+                        "2026-03-12T14:30 (UTC unless an offset such as +01:00 is given)") from None
+    if when.tzinfo is not None:
+        when = when.astimezone(dt.timezone.utc).replace(tzinfo=None)
+    return when.strftime("%Y-%m-%dT%H:%M:%S")
+
+
+def _history_file(db: str | Path) -> Path:
+    """The history file of a results folder, or ``db`` itself when it names a file."""
+    db = Path(db)
+    if db.is_file() or (not db.is_dir() and db.suffix in (".sqlite", ".sqlite3", ".db")):
+        return db
+    return history_path(db)
+
+
 def query_history(
     db: str | Path,
     *,
@@ -340,31 +404,35 @@ def query_history(
 ) -> pd.DataFrame:
     """Rows of the history joined with their run, filtered, oldest run first.
 
-    ``instance`` and ``rule`` accept SQL ``LIKE`` patterns (``%`` wildcard);
-    ``since`` is an ISO date/time compared with the run's start;
-    ``commit`` a prefix of the git commit.
+    ``db`` is the results folder (``results``) or its ``history.sqlite``.
+    ``instance`` and ``rule`` are names or shell-style globs, as ``--problems``
+    takes them (``*`` any characters, ``?`` one, ``[abc]`` a set; case-sensitive;
+    ``%`` and ``_`` are ordinary characters); ``since`` an ISO date or date/time
+    (see :func:`parse_since`) compared with the run's start; ``commit`` a prefix
+    of the git commit.
     """
     import pandas as pd
 
-    db = Path(db)
+    db = _history_file(db)
+    since_key = parse_since(since) if since else None  # a malformed date fails before the file is looked at
     if not db.is_file():
         raise UserError(f"{db}: no history yet (run `benchsuite run` first)")
     where, args = [], []
     if instance:
-        where.append("rows.instance LIKE ?")
+        where.append("glob_match(rows.instance, ?)")
         args.append(instance)
     if rule:
-        where.append("rows.rule LIKE ?")
+        where.append("glob_match(rows.rule, ?)")
         args.append(rule)
     if run_id:
         where.append("rows.run_id = ?")
         args.append(run_id)
-    if since:
+    if since_key:
         where.append("runs.started >= ?")
-        args.append(since)
+        args.append(since_key)
     if commit:
-        where.append("runs.git_commit LIKE ?")
-        args.append(commit + "%")
+        where.append("substr(runs.git_commit, 1, ?) = ?")
+        args.extend([len(commit), commit])
     sql = (
         "SELECT rows.run_id, runs.started, runs.status AS run_status, runs.git_commit, runs.git_dirty, "
         + ", ".join(f'rows."{c}"' for c in TABLE_COLUMNS)
@@ -373,8 +441,40 @@ def query_history(
         + " ORDER BY runs.started, rows.rowid"
     )
     with _connect(db) as conn:
+        conn.create_function("glob_match", 2, _glob, deterministic=True)
         df = pd.read_sql_query(sql, conn, params=args)
     for col, kind in _SQL_TYPES.items():
         if kind == "INTEGER" and col in df:
             df[col] = df[col].astype("Int64")
     return df
+
+
+# -- JSON output ------------------------------------------------------------------
+def json_value(v: Any) -> Any:
+    """A table cell as plain JSON: numpy scalars unwrapped, NaN / inf / NA as ``None``.
+
+    Floats are left as Python floats, which :mod:`json` writes with ``repr``:
+    the shortest text that reads back as the same float64 (no rounding).
+    """
+    if v is None:
+        return None
+    if hasattr(v, "item") and not isinstance(v, (str, bytes)):  # numpy scalar
+        v = v.item()
+    if isinstance(v, float):
+        return v if math.isfinite(v) else None
+    if isinstance(v, (bool, int, str)):
+        return v
+    try:  # pandas NA / NaT
+        import pandas as pd
+
+        if pd.isna(v):
+            return None
+    except (TypeError, ValueError, ImportError):
+        pass
+    return v
+
+
+def json_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """The rows of ``frame`` as JSON-ready dicts that keep every float64 exactly (see :func:`json_value`)."""
+    cols = [str(c) for c in frame.columns]
+    return [{c: json_value(v) for c, v in zip(cols, row)} for row in frame.itertuples(index=False, name=None)]

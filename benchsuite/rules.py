@@ -106,6 +106,23 @@ def _nonneg(name: str, value: Any) -> float:
     return v
 
 
+def _eps(value: Any, *, allow_zero: bool = False) -> float:
+    """An ``eps`` that is added to a denominator: > 0, since ``eps = 0`` turns a gradient
+    coordinate that is exactly 0 into 0/0 = NaN (``allow_zero``: the rule keeps the
+    denominator positive by other means)."""
+    v = _float("eps", value)
+    if allow_zero:
+        if not (0.0 <= v < math.inf):
+            raise ValueError(f"eps must be >= 0 and finite, got {value!r}")
+        return v
+    if not (0.0 < v < math.inf):
+        raise ValueError(
+            f"eps must be > 0 and finite (it is added to a denominator: eps = 0 gives 0/0 = NaN "
+            f"where a gradient coordinate is exactly 0), got {value!r}"
+        )
+    return v
+
+
 def _unit(name: str, value: Any) -> float:
     v = _float(name, value)
     if not (0.0 <= v < 1.0):
@@ -440,8 +457,9 @@ class AdaGrad(Rule):
         self, lr: float = 1e-2, eps: float = 1e-10, initial_accumulator: float = 0.0, lr_decay: float = 0.0
     ) -> None:
         self.lr = _positive("lr", lr)
-        self.eps = _nonneg("eps", eps)
         self.initial_accumulator = _nonneg("initial_accumulator", initial_accumulator)
+        # s_t >= initial_accumulator never decreases: eps = 0 is safe only with a positive start
+        self.eps = _eps(eps, allow_zero=self.initial_accumulator > 0)
         self.lr_decay = _nonneg("lr_decay", lr_decay)
 
     @classmethod
@@ -501,7 +519,7 @@ class RMSProp(Rule):
     ) -> None:
         self.lr = _positive("lr", lr)
         self.decay = _unit("decay", decay)
-        self.eps = _nonneg("eps", eps)
+        self.eps = _eps(eps)  # v decays: even a positive initial_mean_square underflows to 0
         self.eps_inside_sqrt = _flag("eps_inside_sqrt", eps_inside_sqrt)
         self.initial_mean_square = _nonneg("initial_mean_square", initial_mean_square)
 
@@ -613,7 +631,7 @@ class Adam(Rule):
         self.lr = _positive("lr", lr)
         self.beta1 = _unit("beta1", beta1)
         self.beta2 = _unit("beta2", beta2)
-        self.eps = _nonneg("eps", eps)
+        self.eps = _eps(eps)
 
     @classmethod
     def _torch_kwargs(cls, hp: dict[str, Any]) -> dict[str, Any]:
@@ -662,17 +680,28 @@ class AdamW(Adam):
     step ``lambda = weight_decay`` (the paper, schedule multiplier eta_t = 1)
     or ``lambda = lr * weight_decay`` with ``decay_scaled_by_lr = true``
     (torch's convention); the decay uses ``x_{t-1}``, applied before the Adam
-    step. Defaults: Adam's, and ``weight_decay = 1e-2`` (torch's default; the
-    paper uses a normalised decay and no single value — common practice).
+    step. Defaults: Adam's, and ``weight_decay = 1e-5`` in the paper's unscaled
+    convention: the per-step decay of torch's published defaults
+    (torch.optim.AdamW: ``lr = 1e-3``, ``weight_decay = 1e-2``, decay
+    ``lr * weight_decay = 1e-5`` per step). The paper gives no single value
+    (it normalises the decay by the run length); taking torch's ``1e-2``
+    unscaled would decay 1e-2 per step, 1000x torch's default. With
+    ``decay_scaled_by_lr = true`` the same effective default is
+    ``weight_decay = 1e-2`` (``torch_preset``). The effective decay per step
+    must be < 1 (else ``x`` changes sign or vanishes in one step).
     Note: with ``weight_decay > 0`` the fixed point is not the minimiser of f.
     torch: ``AdamW(lr, betas, eps, weight_decay)`` (decay ``lr * weight_decay``).
     """
+
+    #: torch.optim.AdamW's published defaults (lr, weight_decay): their product is the decay per step
+    TORCH_DEFAULT_LR: ClassVar[float] = 1e-3
+    TORCH_DEFAULT_WEIGHT_DECAY: ClassVar[float] = 1e-2
 
     name = "adamw"
     paper = "Loshchilov & Hutter (2019), Decoupled weight decay regularization, ICLR"
     torch_class = "AdamW"
     torch_convention = {"decay_scaled_by_lr": True}
-    torch_preset = {"decay_scaled_by_lr": True, "weight_decay": 1e-2}
+    torch_preset = {"decay_scaled_by_lr": True, "weight_decay": TORCH_DEFAULT_WEIGHT_DECAY}
     seeks_minimiser = False  # the decay term moves the fixed point off the minimiser of f
 
     def __init__(
@@ -681,12 +710,16 @@ class AdamW(Adam):
         beta1: float = 0.9,
         beta2: float = 0.999,
         eps: float = 1e-8,
-        weight_decay: float = 1e-2,
+        weight_decay: float = 1e-5,
         decay_scaled_by_lr: bool = False,
     ) -> None:
         super().__init__(lr, beta1, beta2, eps)
         self.weight_decay = _nonneg("weight_decay", weight_decay)
         self.decay_scaled_by_lr = _flag("decay_scaled_by_lr", decay_scaled_by_lr)
+        per_step = self.weight_decay * (self.lr if self.decay_scaled_by_lr else 1.0)
+        if not per_step < 1.0:
+            what = "lr * weight_decay" if self.decay_scaled_by_lr else "weight_decay"
+            raise ValueError(f"the decay per step ({what} = {per_step!r}) must be < 1")
 
     @classmethod
     def _torch_kwargs(cls, hp: dict[str, Any]) -> dict[str, Any]:
@@ -767,7 +800,7 @@ class Adamax(Rule):
         self.lr = _positive("lr", lr)
         self.beta1 = _unit("beta1", beta1)
         self.beta2 = _unit("beta2", beta2)
-        self.eps = _nonneg("eps", eps)
+        self.eps = _eps(eps, allow_zero=True)  # 0/0 is read as 0 in step (the paper's form)
 
     @classmethod
     def _torch_kwargs(cls, hp: dict[str, Any]) -> dict[str, Any]:
@@ -835,7 +868,7 @@ class NAdam(Rule):
         self.lr = _positive("lr", lr)
         self.beta1 = _unit("beta1", beta1)
         self.beta2 = _unit("beta2", beta2)
-        self.eps = _nonneg("eps", eps)
+        self.eps = _eps(eps)
         self.momentum_decay = _nonneg("momentum_decay", momentum_decay)
         self.schedule = _choice("schedule", schedule, ("dozat", "constant"))
 

@@ -18,9 +18,11 @@ without ``eval`` by :func:`parse_param`, or as a mapping.
   own): the iterate lives in a tensor that shares memory with the numpy
   array, the gradient is handed over as ``.grad`` (sharing memory), and
   ``optimizer.step()`` is called;
-* an **optax-style pure transformation**: an object with
-  ``init(params) -> state`` and ``update(updates, state, params) -> (updates, state)``
-  (or a factory returning one, e.g. ``optax:adam`` with ``learning_rate=...``);
+* an **optax-style pure transformation**: an ``(init, update)`` pair, either
+  an object with ``init(params) -> state`` and
+  ``update(updates, state, params) -> (updates, state)`` attributes or a plain
+  tuple of those two functions (or a factory returning either, e.g.
+  ``optax:adam`` with ``learning_rate=...``);
   the returned updates are **added** to x (optax's convention: updates
   already carry the minus sign). For float64 with jax, enable ``jax_enable_x64``;
 * a **plain function** ``step(x, g, state, t) -> (x, state)`` with exactly
@@ -248,6 +250,37 @@ def _check_names(label: str, given: Mapping[str, Any], accepted: Mapping[str, An
         raise UserError(f"rule {label}: unknown hyperparameter(s) {', '.join(unknown)} (accepted: {ok})")
 
 
+def _kind(value: Any) -> str | None:
+    """The kind of a hyperparameter value a user can give: what :func:`parse_value` produces."""
+    if isinstance(value, (bool, np.bool_)):
+        return "true/false"
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        return "a number"
+    if isinstance(value, str):
+        return "a word"
+    if isinstance(value, (tuple, list)):
+        return "a list of numbers" if all(_kind(v) == "a number" for v in value) else None
+    return None  # anything else (None, callables, objects): the factory's own business
+
+
+def _check_types(name: str, given: Mapping[str, Any], defaults: Mapping[str, Any]) -> None:
+    """Each given value is of the kind of the factory's default for that keyword.
+
+    ``--param lr=fast`` for ``lr=1e-3`` is a UserError naming the rule, the
+    hyperparameter and the value. Checked: a number, true/false, a list of
+    numbers. Not checked: keywords without a default, a default of ``None``
+    or of an unusual type, and a word default (``lr="auto"`` often means
+    "derive it", and a number is a legitimate override).
+    """
+    for key, value in given.items():
+        want = _kind(defaults.get(key))
+        if want in (None, "a word") or _kind(value) == want:
+            continue
+        default = format_value(_plain(defaults[key]))
+        got = format_value(_plain(value)) if _kind(value) not in (None, "a word") else repr(value)
+        raise UserError(f"rule {name}: hyperparameter {key} must be {want} like its default {default}, got {got}")
+
+
 def _plain(value: Any) -> Any:
     """Hyperparameter values as plain Python (numbers, bools, strings, tuples) for records."""
     if isinstance(value, np.generic):
@@ -281,7 +314,7 @@ def build_rule(spec: RuleSpec, constants: Constants | None = None, dtype: Any = 
     if not is_import_path(spec.name):
         raise UserError(f"unknown rule {spec.name!r} ({_close(spec.name)})")
     obj = load_object(spec.name, what="rule")
-    rule, hp = _wrap(obj, label, user, constants, dt)
+    rule, hp = _wrap(obj, label, user, constants, dt, spec.name)
     return BuiltRule(rule, {k: _plain(v) for k, v in hp.items()}, label, dt)
 
 
@@ -312,21 +345,32 @@ def _is_plain_step(obj: Any) -> bool:
     return len(required) == 4
 
 
+def _pair_functions(obj: Any) -> tuple[Callable[..., Any], Callable[..., Any]] | None:
+    """``(init, update)`` of an optax-style pair: attributes, or a plain 2-tuple of functions."""
+    if callable(getattr(obj, "init", None)) and callable(getattr(obj, "update", None)):
+        return obj.init, obj.update
+    if isinstance(obj, tuple) and len(obj) == 2 and all(callable(f) for f in obj):
+        return obj[0], obj[1]
+    return None
+
+
 def _contract(obj: Any) -> str | None:
     if callable(getattr(obj, "init", None)) and callable(getattr(obj, "step", None)):
         return "numpy"
-    if callable(getattr(obj, "init", None)) and callable(getattr(obj, "update", None)):
+    if _pair_functions(obj) is not None:
         return "pair"
     return None
 
 
 def _wrap(
-    obj: Any, label: str, user: dict[str, Any], constants: Constants | None, dt: np.dtype
+    obj: Any, label: str, user: dict[str, Any], constants: Constants | None, dt: np.dtype, name: str = ""
 ) -> tuple[Any, dict[str, Any]]:
     """(contract object, hyperparameters used) for whatever an import path gave."""
+    name = name or label
     if _is_torch_optimizer(obj):
         accepted, var_kw = _accepted(obj.__init__, skip=2)
         _check_names(label, user, accepted, var_kw)
+        _check_types(name, user, accepted)
         rule = TorchOptimizerRule(obj, user, dt, label)
         return rule, {**accepted, **user}
     kind = None if (isinstance(obj, type) or inspect.isroutine(obj)) else _contract(obj)
@@ -336,14 +380,17 @@ def _wrap(
         return (obj if kind == "numpy" else PairRule(obj, label)), {}
     if not callable(obj):
         raise UserError(
-            f"rule {label}: {type(obj).__name__} is neither a factory nor an object with init/step or init/update"
+            f"rule {label}: {type(obj).__name__} is neither a factory nor an object with init/step "
+            "nor an (init, update) pair"
         )
     if _is_plain_step(obj):
         accepted, var_kw = _accepted(obj, skip=4)
         _check_names(label, user, accepted, var_kw)
+        _check_types(name, user, accepted)
         return FunctionRule(obj, user, label), {**accepted, **user}
     accepted, var_kw = _accepted(obj.__init__ if isinstance(obj, type) else obj, skip=1 if isinstance(obj, type) else 0)
     _check_names(label, user, accepted, var_kw)
+    _check_types(name, user, accepted)
     aware = getattr(obj, "problem_defaults", None)
     derived = dict(aware(constants)) if callable(aware) and constants is not None else {}
     kwargs = {**{k: v for k, v in derived.items() if k in accepted or var_kw}, **user}
@@ -355,7 +402,7 @@ def _wrap(
     if kind is None:
         raise UserError(
             f"rule {label}: the factory returned {type(made).__name__}, which has no init/step "
-            "(numpy rule) nor init/update (optax-style pair)"
+            "(numpy rule) and is no (init, update) pair (an object with .init/.update or a tuple of two functions)"
         )
     hp = {**{k: v for k, v in accepted.items() if v is not None}, **kwargs}
     if kind == "pair":
@@ -419,17 +466,23 @@ class TorchOptimizerRule:
 class PairRule:
     """An optax-style ``(init, update)`` pure transformation behind the numpy contract.
 
+    ``transform`` is an object with ``.init`` and ``.update`` (optax's
+    ``GradientTransformation``) or a plain tuple ``(init, update)``.
     ``x <- x + updates`` where ``updates, state = update(g, state, x)``.
     """
 
     def __init__(self, transform: Any, label: str) -> None:
+        fns = _pair_functions(transform)
+        if fns is None:
+            raise UserError(f"rule {label}: expected an (init, update) pair, got {type(transform).__name__}")
         self.transform, self.label = transform, label
+        self._init, self._update = fns
 
     def init(self, x0: np.ndarray) -> Any:
-        return self.transform.init(x0)
+        return self._init(x0)
 
     def step(self, x: np.ndarray, g: np.ndarray, state: Any) -> tuple[np.ndarray, Any]:
-        out = self.transform.update(g, state, x)
+        out = self._update(g, state, x)
         if not isinstance(out, tuple) or len(out) != 2:
             raise UserError(f"rule {self.label}: update must return (updates, state), got {type(out).__name__}")
         u = np.asarray(out[0])

@@ -170,7 +170,7 @@ def run_cases(
             good = next((r for r in reps if r.hyperparams), reps[0])
             outs = tuple(r.outcome for r in reps)
             res = CaseResult(cases[i], good.hyperparams, outs, good.theory_bound or tuple(None for _ in cases[i].run_targets),
-                             aggregate_status([o.status for o in outs]), good.bound_source)
+                             aggregate_status([o.status for o in outs]), good.bound_source, good.theory_lower)
             results[i] = res
             if on_result is not None:
                 on_result(res)
@@ -520,7 +520,7 @@ def execute(
         "rules": sorted({c.rule.label for c in plan.cases}),
         "git": git_info(),
         "machine": machine_info(),
-        "settings": {"jobs": jobs or os.cpu_count(), "threads": threads, "repeats": repeats, "timeout": timeout,
+        "settings": {"jobs": jobs or os.cpu_count(), "threads": threads, "replays": repeats, "timeout": timeout,
                      "timing": timing, "diverged_above": DIVERGED_ABOVE},
         "sweep": parse_sweep(req.sweep).describe() if req.sweep else None,
         "skipped": list(plan.skipped),
@@ -532,9 +532,7 @@ def execute(
         meta["resumed"].append(_now())
     if rd is not None:
         rd.write_meta(meta)
-    previous = {c.key(): result_from_dict(c, stored[c.key()], rd.load_traces(c.key()) if rd else None)
-                for c in plan.cases if c.key() in stored}
-    finished: dict[str, CaseResult] = dict(previous)
+    finished: dict[str, CaseResult] = {}
 
     def keep(r: CaseResult) -> None:
         finished[r.case.key()] = r
@@ -555,15 +553,20 @@ def execute(
             record_history(history_path(out), rd.run_id, meta, table_rows(results, flags))
         return frame
 
+    # from the moment meta.json says "running", an interrupt (Ctrl-C, or SIGTERM turned into one
+    # by the command line) leaves it "partial" with every finished case kept
     try:
+        previous = {c.key(): result_from_dict(c, stored[c.key()], rd.load_traces(c.key()) if rd else None)
+                    for c in plan.cases if c.key() in stored}
+        finished.update(previous)
         results = run_cases(plan.cases, jobs=jobs, timing=timing, repeats=repeats, threads=threads,
                             timeout=timeout, progress=progress, previous=previous, on_result=keep)
+        selected = sweep_selection(plan, results, parse_sweep(req.sweep).name) if req.sweep else []
+        frame = close("complete", results, selected)
     except KeyboardInterrupt:
         done = [finished[c.key()] for c in plan.cases if c.key() in finished]
         close("partial", done, [])
         raise RunInterrupted(rd.run_id if rd else None) from None
-    selected = sweep_selection(plan, results, parse_sweep(req.sweep).name) if req.sweep else []
-    frame = close("complete", results, selected)
     return RunOutcome(frame, tuple(results), rd.run_id if rd else None, str(rd.path) if rd else None,
                       "complete", tuple(selected), plan.skipped, plan.notes)
 

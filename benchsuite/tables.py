@@ -29,6 +29,7 @@ def table_rows(results: Sequence[CaseResult], selected: Mapping[str, bool] | Non
             for j, t in enumerate(c.run_targets):
                 k = o.iters[j]
                 b = r.theory_bound[j] if j < len(r.theory_bound) else None
+                lo = r.theory_lower[j] if j < len(r.theory_lower) else None
                 rows.append({
                     "case": key,
                     "instance": c.instance.name,
@@ -56,6 +57,8 @@ def table_rows(results: Sequence[CaseResult], selected: Mapping[str, bool] | Non
                     "left_at": o.left_at,
                     "theory_bound": b,
                     "bound_violated": None if b is None else bool(k is not None and k > b),
+                    "theory_lower": lo,
+                    "below_lower": None if lo is None else bool(k is not None and k < lo),
                     "budget": c.run_budget,
                     "selected": None if selected is None else selected.get(key),
                 })
@@ -69,8 +72,8 @@ def to_frame(results: Sequence[CaseResult], selected: Mapping[str, bool] | None 
     from benchsuite.results import TABLE_COLUMNS
 
     df = pd.DataFrame(table_rows(results, selected), columns=list(TABLE_COLUMNS))
-    for col in ("batch", "iterations", "held_from", "grad_calls", "theory_bound", "left_at"):
+    for col in ("batch", "iterations", "held_from", "grad_calls", "theory_bound", "theory_lower", "left_at"):
         df[col] = df[col].astype("Int64")
-    for col in ("replace", "bound_violated", "selected"):
+    for col in ("replace", "bound_violated", "below_lower", "selected"):
         df[col] = df[col].astype("boolean")
     return df

@@ -298,3 +298,91 @@ def reordered_gradient():
             LinearModel._finish = original
 
     return patched()
+# =====================================================================================
+# precision bugs
+# (owned by the theory helper; tests/test_default_set.py shows the default set sees them)
+#
+# Each broken class differs from its clean parent in one line. The clean parents compute
+# in exactly the same order as their broken children, so a difference in the counts is
+# the bug, never a different round-off path.
+# =====================================================================================
+class PrecisionAdam:
+    """Correct Adam (Kingma & Ba 2015, Algorithm 1), moments in the iterate's dtype, eps outside the root."""
+
+    def __init__(self, lr: float = 1e-3, beta1: float = 0.9, beta2: float = 0.999, eps: float = 1e-8) -> None:
+        self.lr, self.beta1, self.beta2, self.eps = lr, beta1, beta2, eps
+
+    def init(self, x0: np.ndarray) -> dict[str, Any]:
+        return {"m": np.zeros_like(x0), "v": np.zeros_like(x0), "t": 0}
+
+    def _moments(self, g: np.ndarray, s: dict[str, Any]) -> tuple[np.ndarray, np.ndarray]:
+        s["t"] += 1
+        s["m"] = self.beta1 * s["m"] + (1 - self.beta1) * g
+        s["v"] = self.beta2 * s["v"] + (1 - self.beta2) * g * g
+        return s["m"], s["v"]
+
+    def _denominator(self, v_hat: np.ndarray) -> np.ndarray:
+        return np.sqrt(v_hat) + self.eps
+
+    def step(self, x: np.ndarray, g: np.ndarray, s: dict[str, Any]) -> tuple[np.ndarray, dict[str, Any]]:
+        m, v = self._moments(g, s)
+        t = s["t"]
+        m_hat = m / (1 - self.beta1**t)
+        v_hat = v / (1 - self.beta2**t)
+        return (x - self.lr * m_hat / self._denominator(v_hat)).astype(x.dtype, copy=False), s
+
+
+class AdamEpsUnderRoot(PrecisionAdam):
+    """BROKEN: sqrt(v_hat + eps) instead of sqrt(v_hat) + eps: a floor of 1e-4 on the denominator."""
+
+    def _denominator(self, v_hat):
+        return np.sqrt(v_hat + self.eps)
+
+
+class AdamFloat32Moments(PrecisionAdam):
+    """BROKEN: m and v stored in float32 (the update is computed in float64, then rounded)."""
+
+    def init(self, x0):
+        return {"m": np.zeros(x0.shape, np.float32), "v": np.zeros(x0.shape, np.float32), "t": 0}
+
+    def _moments(self, g, s):
+        s["t"] += 1
+        s["m"] = (self.beta1 * s["m"] + (1 - self.beta1) * g).astype(np.float32)
+        s["v"] = (self.beta2 * s["v"] + (1 - self.beta2) * g * g).astype(np.float32)
+        return s["m"].astype(g.dtype), s["v"].astype(g.dtype)
+
+
+class AdamClampedV(PrecisionAdam):
+    """BROKEN: v clamped from below at 1e-10 "for stability": sqrt(v) >= 1e-5 on small gradients."""
+
+    def _moments(self, g, s):
+        m, v = super()._moments(g, s)
+        s["v"] = np.maximum(v, 1e-10)
+        return m, s["v"]
+
+
+class PrecisionAdaGrad:
+    """Correct diagonal AdaGrad (Duchi, Hazan & Singer 2011), eps outside the root (as torch)."""
+
+    def __init__(self, lr: float = 1e-2, eps: float = 1e-10, initial_accumulator: float = 0.0,
+                 lr_decay: float = 0.0) -> None:
+        self.lr, self.eps, self.s0, self.lr_decay = lr, eps, initial_accumulator, lr_decay
+
+    def init(self, x0):
+        return {"s": np.full_like(x0, self.s0), "t": 0}
+
+    def _denominator(self, s):
+        return np.sqrt(s) + self.eps
+
+    def step(self, x, g, st):
+        st["t"] += 1
+        st["s"] = st["s"] + g * g
+        lr = self.lr / (1 + (st["t"] - 1) * self.lr_decay)
+        return x - lr * g / self._denominator(st["s"]), st
+
+
+class AdaGradEpsUnderRoot(PrecisionAdaGrad):
+    """BROKEN: sqrt(s + eps) instead of sqrt(s) + eps: a floor of 1e-5 on the denominator."""
+
+    def _denominator(self, s):
+        return np.sqrt(s + self.eps)

@@ -174,6 +174,11 @@ BAD_CASES = [
     (entry(targets=[1e-4, 1e-2]), ["[x].targets", "strictly decreasing"]),
     (entry(targets=[1e-2, 0.0]), ["[x].targets", "> 0"]),
     (entry(targets=[1e-2, -1.0]), ["[x].targets", "> 0"]),
+    # every measure is 1 at the start: a target of 1 or more is met before the first step
+    (entry(targets=[1.0, 1e-2]), ["[x].targets", "> 0 and < 1", "got 1.0"]),
+    (entry(targets=[5, 1e-2]), ["[x].targets", "> 0 and < 1", "got 5"]),
+    ("# no instances yet\n", ["no [[instance]] table", "defines no instance"]),
+    ("instance = []\n", ["no [[instance]] table"]),
     (entry(tier="huge"), ["[x].tier", "unknown tier 'huge'"]),
     (entry(measure="speed"), ["[x].measure", "unknown measure 'speed'"]),
     (entry(x_tol=-1.0), ["[x].x_tol", "> 0"]),
@@ -263,13 +268,13 @@ def test_strd_bad_files(tmp_path: Path) -> None:
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.lists(st.floats(min_value=-1.0, max_value=1.0, allow_nan=False, allow_infinity=False), min_size=1, max_size=5),
+@given(st.lists(st.floats(min_value=-1.0, max_value=2.0, allow_nan=False, allow_infinity=False), min_size=1, max_size=5),
        st.integers(-3, 3))
 def test_targets_and_budget_accepted_exactly_when_valid(targets: list[float], budget: int) -> None:
-    """Law: an entry loads iff targets are > 0 and strictly decreasing and budget > 0."""
+    """Law: an entry loads iff targets are in (0, 1) and strictly decreasing and budget > 0."""
     import tempfile
 
-    valid = all(t > 0 for t in targets) and all(b < a for a, b in zip(targets, targets[1:])) and budget > 0
+    valid = all(0 < t < 1 for t in targets) and all(b < a for a, b in zip(targets, targets[1:])) and budget > 0
     with tempfile.TemporaryDirectory() as d:
         f = Path(d) / "t.toml"
         f.write_text(entry(targets=targets, budget=budget))
@@ -281,3 +286,89 @@ def test_targets_and_budget_accepted_exactly_when_valid(targets: list[float], bu
         else:
             assert valid
             assert cat["x"].targets == tuple(targets) and cat["x"].budget == budget
+
+
+def test_an_empty_catalogue_folder_is_one_line(tmp_path: Path) -> None:
+    (tmp_path / "empty").mkdir()
+    with pytest.raises(UserError, match=r"empty: no catalogue files \(\*\.toml\) in this folder$"):
+        load_catalogue([tmp_path / "empty"])
+
+
+def test_where_each_instance_came_from(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    cat = load_catalogue([write(tmp_path, GOOD)])
+    assert cat["q-small"].catalogue == str(tmp_path / "cat.toml") and not cat["q-small"].builtin
+    assert cat["quad-diag-kappa10-d10"].catalogue == "builtin" and cat["quad-diag-kappa10-d10"].builtin
+    monkeypatch.chdir(tmp_path)
+    assert load_catalogue(["cat.toml"])["q-small"].catalogue == "cat.toml"  # the path as given
+    assert instance_from_strd(STRD_DIR / "Misra1a.dat").catalogue == str(STRD_DIR / "Misra1a.dat")
+
+
+def test_selection_errors_name_what_the_caller_gave(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    cat = only_extra(tmp_path, GOOD, monkeypatch)
+    with pytest.raises(UserError, match=r"^--problems: unknown instance 'q-smal'"):
+        select(cat, "q-smal")  # the command line's default
+    with pytest.raises(UserError, match=r"^NAME_OR_PATH: unknown instance 'q-smal'; close matches: q-small$"):
+        select(cat, "q-smal", option="NAME_OR_PATH")
+    with pytest.raises(UserError, match=r"^problems='z\*': 'z\*' matches no instance$"):
+        select(cat, "z*", option="problems='z*'")
+    with pytest.raises(UserError, match=r"^tier='tiny': unknown tier 'tiny'"):
+        select(cat, tier="tiny", tier_option="tier='tiny'")
+
+
+# -- x_tol against each family's stated rule (problems/*.toml headers) ----------------------
+#: families whose header states x_tol >= sqrt(kappa t_min) (measure subopt), from
+#: mu/2 ||e||^2 <= f - f* <= t (f0 - f*) <= t L/2 ||e0||^2 (closed form); for measure dist the
+#: rule is t_min itself, for gradnorm kappa t_min (mu ||e|| <= ||g||, ||g0|| <= L ||e0||)
+KAPPA_RULE = frozenset({"quadratic", "least_squares", "ridge", "logistic", "softmax", "huber"})
+#: non-convex (or mu = 0) families whose header states the local rule from the Hessian at x*:
+#: ||x - x*|| ~ sqrt(2 t (f0 - f*) / lambda_min(H*)), relative to ||x0 - x*|| (second-order model)
+LOCAL_RULE = frozenset({"rosenbrock", "huber"})
+#: families whose x_tol is measured (header: gradient-descent runs, distance quoted per entry,
+#: a factor 2-3 over it), or, for Longley, sqrt(kappa t) > 1 gives no distance claim at all
+MEASURED = frozenset({"mgh", "nist_strd", "longley"})
+
+
+def _x_tol_rule(inst: Instance) -> tuple[float, str] | None:
+    """The distance the family's rule allows after the tightest target, and which rule (None: measured)."""
+    import math
+
+    import numpy as np
+
+    from benchsuite.optimum import certified_optimum
+
+    if inst.family in MEASURED:
+        return None
+    problem = inst.build()
+    c = problem.constants()
+    t = min(inst.targets)
+    if inst.family in KAPPA_RULE and c.L and c.mu and c.mu > 0:
+        kappa = c.L / c.mu
+        return {"subopt": math.sqrt(kappa * t), "dist": t, "gradnorm": kappa * t}[inst.measure], "kappa"
+    assert inst.family in LOCAL_RULE and inst.measure == "subopt", inst.name
+    opt = certified_optimum(inst)  # the committed reference cache
+    xs = np.asarray(opt.x_star, dtype=np.float64)
+    H = np.array([problem.hessp(xs, e) for e in np.eye(problem.dim)])
+    lam_min = float(np.linalg.eigvalsh(0.5 * (H + H.T))[0])
+    x0 = problem.initial_point().astype(np.float64)
+    return math.sqrt(2 * t * (problem.value(x0) - opt.f_star) / lam_min) / float(np.linalg.norm(x0 - xs)), "local"
+
+
+def test_every_family_states_an_x_tol_rule() -> None:
+    families = {i.family for i in load_catalogue().values() if i.source.endswith(".toml")}
+    assert families <= KAPPA_RULE | LOCAL_RULE | MEASURED, families - (KAPPA_RULE | LOCAL_RULE | MEASURED)
+
+
+@pytest.mark.parametrize("name", sorted(n for n, i in load_catalogue().items() if i.family not in MEASURED))
+def test_x_tol_follows_the_family_rule(name: str) -> None:
+    inst = load_catalogue()[name]
+    got = _x_tol_rule(inst)
+    assert got is not None
+    rule, kind = got
+    assert 0 < rule < 1
+    # never tighter than the rule: a correct rule that meets t_min may end anywhere within it
+    # (1e-9: the rule is rounded up to two digits in the files, never down)
+    assert inst.x_tol >= rule * (1 - 1e-9), (name, inst.x_tol, rule)
+    if kind == "kappa":
+        # and not much looser (x_tol is the rule rounded up, at most 2x): a looser one lets a
+        # rule that stops far from x* through the gate's distance check
+        assert inst.x_tol <= 2 * rule, (name, inst.x_tol, rule)

@@ -81,6 +81,9 @@ def test_optimum_strd_path_gives_published_and_lre(tmp_path: Path) -> None:
     assert doc["published"]["f"] == 1.2455138894e-01
     assert doc["lre"] >= 6 and doc["lre"] == doc["lre_per_parameter"]["min"]
     assert doc["x_star"][0] == pytest.approx(2.3894212918e02, rel=1e-9)  # the certified value has 11 digits
+    # strict JSON: an unknown number (kappa of a problem that is not strongly convex) is null, not "nan" or NaN
+    json.loads(r.stdout, parse_constant=lambda c: pytest.fail(f"non-standard JSON constant {c}"))
+    assert doc["tolerances"]["kappa"] is None and '"nan"' not in r.stdout and '"inf"' not in r.stdout
 
 
 def test_not_certified_exits_1_and_says_why(tmp_path: Path) -> None:
@@ -148,3 +151,42 @@ def test_strd_file_without_certified_block_exit_2(tmp_path: Path) -> None:
     r = cli("optimum", str(bad), "--cache-dir", str(tmp_path))
     assert r.returncode == 2 and "Traceback" not in r.stderr
     assert "NoCert.dat" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_help_lists_exit_codes() -> None:
+    top = cli("--help")
+    assert top.returncode == 0 and "143 terminated (SIGTERM)" in " ".join(top.stdout.split())
+    run = cli("run", "--help")
+    text = " ".join(run.stdout.split())
+    for fragment in ("0 every case ran cleanly", "1 some case ended error, timeout or diverged, or unstable with --strict",
+                     "2 usage error", "130 interrupted (Ctrl-C); 143 terminated (SIGTERM)",
+                     "Writes ./results/runs/<run-id>/", "--replays N"):
+        assert fragment in text, fragment
+    assert "--repeats" not in text
+
+
+def test_packaging_declares_every_package_and_data_file() -> None:
+    """Every folder of the package that holds files is a declared package, and every data file matches a glob.
+
+    A wheel ships exactly this (checked by hand with ``pip wheel . --no-deps``); an undeclared folder is
+    left out of the wheel and makes setuptools print a long warning.
+    """
+    import fnmatch
+    import tomllib
+
+    conf = tomllib.loads((ROOT / "pyproject.toml").read_text())["tool"]["setuptools"]
+    packages = set(conf["packages"])
+    globs = conf.get("package-data", {})
+    pkg_root = ROOT / "benchsuite"
+    missing = []
+    for f in sorted(pkg_root.rglob("*")):
+        if not f.is_file() or "__pycache__" in f.parts or f.suffix == ".pyc":
+            continue
+        package = ".".join(f.parent.relative_to(ROOT).parts)
+        if package not in packages:
+            missing.append(f"{package} (holds {f.name}) is not in [tool.setuptools] packages")
+        elif f.suffix != ".py" and not any(fnmatch.fnmatchcase(f.name, g) for g in globs.get(package, [])):
+            missing.append(f"{f.relative_to(ROOT)} matches no package-data glob of {package}")
+    assert not missing, missing
+    strd = pkg_root / "data" / "strd"
+    assert (strd / "ERRATA.md").is_file() and len(list(strd.glob("*.dat"))) >= 10

@@ -387,7 +387,7 @@ def warm_reference(dest: Path) -> None:
     """Copy the committed reference cache (certified optima) into a scratch project, if there is one."""
     if (REPO / "results" / "reference").is_dir():
         shutil.copytree(REPO / "results" / "reference", dest)
-EXTRA = REPO / "examples" / "kestrel" / "problems.toml"  # quad-small-gradients-kappa10-d10
+EXTRA = REPO / "examples" / "quorvane" / "problems.toml"  # quad-small-gradients-kappa10-d10
 
 #: base rule -> (hyperparameters, problems). Chosen so that each breakage shows:
 #: Adam at lr = 0.1 converges in 30-170 steps, so the early-step errors (bias
@@ -569,7 +569,7 @@ def test_forgotten_catalogue_advises_passing_it(recorded) -> None:
     """Issue 9: the gate said "re-record the baseline" where --catalogue was the fix."""
     base = load_baseline(recorded["adam"])
     (where,) = {c.catalogue for c in base.cases if c.instance == "quad-small-gradients-kappa10-d10"}
-    assert where.endswith("examples/kestrel/problems.toml")
+    assert where.endswith("examples/quorvane/problems.toml")
     assert {c.catalogue for c in base.cases if c.instance != "quad-small-gradients-kappa10-d10"} == {"builtin"}
     with pytest.raises(UserError) as err:
         run_gate(base, "adam", jobs=1)
@@ -740,12 +740,12 @@ def test_cli_baseline_and_gate_exit_codes(tmp_path: Path) -> None:
     assert "Traceback" not in malformed.stderr
 
 
-def test_kestrel_example_baseline_passes(monkeypatch: pytest.MonkeyPatch) -> None:
-    """The committed example (examples/kestrel) stays valid: its rule passes its own baseline, exactly."""
-    kestrel = REPO / "examples" / "kestrel"
-    monkeypatch.chdir(kestrel)
+def test_quorvane_example_baseline_passes(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The committed example (examples/quorvane) stays valid: its rule passes its own baseline, exactly."""
+    quorvane = REPO / "examples" / "quorvane"
+    monkeypatch.chdir(quorvane)
     base = load_baseline("baseline.json")
-    report = run_gate(base, "kestrel_optim:KestrelAdam", config=GateConfig(exact=True), catalogue_paths=["problems.toml"],
+    report = run_gate(base, "quorvane_optim:QuorvaneAdam", config=GateConfig(exact=True), catalogue_paths=["problems.toml"],
                       jobs=1)
     assert report.passed, [v.reasons for v in report.failures]
 

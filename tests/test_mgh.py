@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import assume, given, settings
+from hypothesis import assume, example, given, settings
 from hypothesis import strategies as st
 from scipy.optimize import least_squares, root
 
 from benchsuite.families import resolve_family
-from benchsuite.families.mgh import FUNCTIONS, MGH
+from benchsuite.families.mgh import FUNCTIONS, MGH, _theta
 
 NAMES = sorted(FUNCTIONS)
 
@@ -62,6 +62,10 @@ def test_jacobian_matches_complex_step(name):
 
 @settings(max_examples=30, deadline=None)
 @given(x=st.tuples(st.floats(-3, 3), st.floats(-3, 3), st.floats(-3, 3)).filter(lambda t: np.hypot(t[0], t[1]) > 0.1))
+# regression: at x2 = -0.0 the step x + h e1 has x2 = +0.0 and x - h e1 keeps -0.0; theta once
+# returned -1/2 for the one and 1/2 for the other (arctan2 tells the zeros apart)
+@example(x=(-1.0, -0.0, 0.0))
+@example(x=(-2.5, 0.0, 1.0))
 def test_helical_valley_jacobian_matches_central_differences(x):
     p = MGH("helical_valley")
     x = np.array(x)
@@ -90,6 +94,24 @@ def test_helical_valley_branch_of_theta():
         theta = np.arctan(x2 / x1) / (2 * np.pi) + (0.5 if x1 < 0 else 0.0)
         r = p.residuals(np.array([x1, x2, 0.0]))
         assert r[0] == pytest.approx(-100 * theta, rel=1e-14)  # round-off only
+
+
+def test_theta_is_continuous_across_the_negative_x1_axis_and_jumps_only_at_x1_0_x2_negative():
+    # theta = arctan(x2 / x1) / (2 pi) + 1/2 for x1 < 0 (Moré, Garbow & Hillstrom 1981, from memory):
+    # arctan(+-0 / x1) = -+0, so both signed zeros of x2 give exactly 1/2
+    assert _theta(-1.0, -0.0) == _theta(-1.0, 0.0) == 0.5
+    for x1 in (-3.0, -1.0, -1e-3):
+        for tiny in (1e-300, 1e-12, 1e-6):
+            # continuous: the two sides differ by 2 arctan(tiny / |x1|) / (2 pi) <= tiny / (pi |x1|),
+            # plus the round-off of two values near 1/2 (ulp 1.1e-16; 1e-15 allows a few ulps each)
+            assert abs(_theta(x1, tiny) - _theta(x1, -tiny)) <= tiny / (np.pi * abs(x1)) + 1e-15
+    # the one discontinuity: across x1 = 0 below the axis, a jump of exactly 1 (3/4 vs -1/4 in the limit)
+    assert _theta(-1e-300, -1.0) == 0.75 and _theta(1e-300, -1.0) == -0.25
+    # on x1 = 0 (undefined in the paper) both signed zeros take the limit from x1 > 0
+    assert _theta(0.0, -1.0) == _theta(-0.0, -1.0) == -0.25
+    assert _theta(0.0, 1.0) == _theta(-0.0, 1.0) == 0.25 == _theta(-1e-300, 1.0)
+    p = MGH("helical_valley")
+    np.testing.assert_array_equal(p.residuals(np.array([-1.0, -0.0, 0.0])), p.residuals(np.array([-1.0, 0.0, 0.0])))
 
 
 def test_box3d_other_minima_and_the_certified_one():

@@ -294,3 +294,99 @@ def test_every_catalogue_instance_has_a_committed_certified_entry() -> None:
         if not any(d["certified"] for d in docs):
             missing.append(name)
     assert not missing, f"no committed certified optimum for {missing}: run `benchsuite optimum NAME` and commit"
+
+
+# -- what the output says about a published value ---------------------------------------
+PUBLISHED_FAMILIES = ("longley", "mgh", "rosenbrock", "nist_strd")
+
+
+def test_published_sources_name_the_publication_only() -> None:
+    """Where a recalled value came from is a note in the source and tests, never output text."""
+    cat = load_catalogue()
+    seen = set()
+    for inst in cat.values():
+        if inst.family in PUBLISHED_FAMILIES:  # all cheap to build (at most d = 100)
+            pub = inst.build().published()
+            assert pub is not None and "memory" not in pub.source and "memory" not in pub.note, inst.name
+            seen.add(inst.family)
+    assert {"longley", "mgh", "rosenbrock"} <= seen
+    for f in (ROOT / "results" / "reference").glob("*.json"):  # the committed cache is shown as is
+        assert "from memory" not in f.read_text(), f.name
+
+
+def test_a_cache_entry_with_an_old_label_is_shown_with_the_current_one(tmp_path: Path) -> None:
+    inst = load_catalogue()["nist-longley"]
+    src = cache_path(inst, ROOT / "results" / "reference")
+    doc = json.loads(src.read_text())
+    doc["published"]["source"] += " (an older wording)"
+    (tmp_path / src.name).write_text(json.dumps(doc))
+    o = certified_optimum(inst, cache_dir=tmp_path)
+    assert o.from_cache and o.published.source == "NIST StRD Longley certified values"
+
+
+def test_optimum_command_output_names_the_publication() -> None:
+    import subprocess
+    import sys
+
+    proc = subprocess.run(
+        [sys.executable, "-m", "benchsuite", "optimum", "nist-longley,mgh-wood,rosenbrock-2d"],
+        cwd=ROOT, capture_output=True, text=True, timeout=300,
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert "published (NIST StRD Longley certified values): f = " in proc.stdout
+    assert "published (Moré, Garbow & Hillstrom (1981), ACM TOMS 7(1):17-41, function 14): f = 0.0" in proc.stdout
+    assert "published (Rosenbrock (1960), The Computer Journal 3:175-184 (2-D);" in proc.stdout
+    assert "memory" not in proc.stdout
+
+
+# -- where new cache entries go ---------------------------------------------------------------
+STRD = ROOT / "benchsuite" / "data" / "strd"
+
+
+def test_user_cache_dir_follows_the_environment(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
+    monkeypatch.setenv("BENCHSUITE_CACHE_DIR", str(tmp_path / "mine"))
+    assert opt_mod.user_cache_dir() == tmp_path / "mine" / "reference"
+    monkeypatch.delenv("BENCHSUITE_CACHE_DIR")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
+    assert opt_mod.user_cache_dir() == tmp_path / "xdg" / "benchsuite" / "reference"
+    monkeypatch.setenv("XDG_CACHE_HOME", "relative/ignored")  # the XDG spec: relative paths are invalid
+    monkeypatch.setenv("HOME", str(tmp_path / "home"))
+    assert opt_mod.user_cache_dir() == tmp_path / "home" / ".cache" / "benchsuite" / "reference"
+
+
+def test_new_entries_of_builtin_instances_go_to_results_and_others_to_the_user_cache(tmp_path: Path) -> None:
+    builtin = load_catalogue()["quad-diag-kappa10-d10"]
+    assert cache_path(builtin).parent == Path("results") / "reference"
+    user = instance_from_strd(STRD / "Misra1a.dat")
+    assert cache_path(user).parent == opt_mod.user_cache_dir()
+    assert cache_path(quad()).parent == opt_mod.user_cache_dir()  # made in code: not the committed cache
+    assert cache_path(user, tmp_path).parent == tmp_path  # an explicit folder wins
+
+
+def test_optimum_of_a_dat_file_never_writes_beside_the_committed_cache(tmp_path: Path) -> None:
+    import os
+    import subprocess
+    import sys
+
+    env = {**os.environ, "BENCHSUITE_CACHE_DIR": str(tmp_path / "cache")}
+    (tmp_path / "results" / "reference").mkdir(parents=True)  # as in a checkout: the committed cache
+    cmd = [sys.executable, "-m", "benchsuite", "optimum", str(STRD / "Misra1a.dat")]
+    first = subprocess.run(cmd, cwd=tmp_path, env=env, capture_output=True, text=True, timeout=300)
+    assert first.returncode == 0, first.stderr
+    assert list((tmp_path / "results" / "reference").iterdir()) == []
+    [entry] = (tmp_path / "cache" / "reference").glob("Misra1a-start1-*.json")
+    assert json.loads(entry.read_text())["certified"] is True
+    second = subprocess.run(cmd, cwd=tmp_path, env=env, capture_output=True, text=True, timeout=300)
+    assert "CERTIFIED [from cache]" in second.stdout.splitlines()[0]
+
+
+def test_mgh17_from_a_cold_cache_prints_no_overflow_warning(tmp_path: Path) -> None:
+    import warnings
+
+    before = np.geterr()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        o = certified_optimum(instance_from_strd(STRD / "MGH17.dat"), cache_dir=tmp_path)
+    assert o.certified and not o.from_cache, o.reason
+    assert [str(w.message) for w in caught if issubclass(w.category, RuntimeWarning)] == []
+    assert np.geterr() == before  # silenced around the solver call only, not globally

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import json
 import os
+import stat
 from pathlib import Path
 
 import pandas as pd
@@ -12,8 +14,11 @@ from benchsuite.errors import UserError
 from benchsuite.results import (
     TABLE_COLUMNS,
     RunDir,
+    atomic_write_bytes,
     atomic_write_json,
     atomic_write_text,
+    json_records,
+    parse_since,
     query_history,
     record_history,
 )
@@ -77,7 +82,7 @@ def test_history_records_one_run_per_transaction_and_queries(tmp_path: Path) -> 
     assert isinstance(df, pd.DataFrame) and len(df) == 4
     assert list(df.run_id) == ["r1", "r1", "r1", "r2"]
     assert set(df[df.run_id == "r1"].run_status) == {"complete"}
-    assert len(query_history(db, rule="ad%")) == 1
+    assert len(query_history(db, rule="ad*")) == 1
     assert len(query_history(db, since="2026-01-02")) == 1
     assert len(query_history(db, commit="ab")) == 3
     # a failing insert rolls the whole run back: no half-recorded run
@@ -88,3 +93,90 @@ def test_history_records_one_run_per_transaction_and_queries(tmp_path: Path) -> 
     assert "r3" not in set(query_history(db).run_id)
     with pytest.raises(UserError, match="no history"):
         query_history(tmp_path / "none.sqlite")
+
+
+@pytest.mark.parametrize("umask, mode", [(0o022, 0o644), (0o077, 0o600), (0o002, 0o664)])
+def test_atomic_write_honours_the_umask(tmp_path: Path, umask: int, mode: int) -> None:
+    old = os.umask(umask)
+    try:
+        atomic_write_bytes(tmp_path / "a.bin", b"x")
+        atomic_write_json(tmp_path / "b.json", {"v": 1})
+        reference = tmp_path / "plain.txt"
+        reference.write_text("x")  # what open() gives under this umask
+    finally:
+        os.umask(old)
+    for name in ("a.bin", "b.json"):
+        got = stat.S_IMODE((tmp_path / name).stat().st_mode)
+        assert got == mode == stat.S_IMODE(reference.stat().st_mode), (name, oct(got))
+
+
+def test_json_records_round_trip_float64() -> None:
+    tiny = [7.154e-09, 4e-11, 1e-300, 0.1 + 0.2, 123456789.12345678, 5e-324]
+    frame = pd.DataFrame({"x": tiny, "k": pd.array([1, None, 3, 4, 5, 6], dtype="Int64"),
+                          "nan": [float("nan"), float("inf"), 1.0, 2.0, 3.0, 4.0]})
+    back = json.loads(json.dumps(json_records(frame), allow_nan=False))
+    assert [r["x"] for r in back] == tiny  # exact equality: repr round-trips a float64
+    assert [r["k"] for r in back] == [1, None, 3, 4, 5, 6]
+    assert back[0]["nan"] is None and back[1]["nan"] is None  # JSON has no NaN / inf
+
+
+def _db_with_names(tmp_path: Path) -> Path:
+    db = tmp_path / "history.sqlite"
+    rules = ["adam", "adam_x", "adamw", "adaxm", "gd", "a%b", "Adam"]
+    rows = [{**{c: None for c in TABLE_COLUMNS}, "instance": f"inst_{j}", "rule": r, "bound_violated": None}
+            for j, r in enumerate(rules)]
+    record_history(db, "r1", {"started": "2026-03-12T10:00:00Z", "status": "complete", "git": {}}, rows)
+    return db
+
+
+@pytest.mark.parametrize("pattern, expected", [
+    ("adam*", {"adam", "adam_x", "adamw"}),   # shell-style *, case-sensitive like --problems
+    ("adam?", {"adamw"}),
+    ("ada?m", {"adaxm"}),
+    ("adam_x", {"adam_x"}),                 # _ is an ordinary character, not a one-character wildcard
+    ("adam_", set()),
+    ("a%b", {"a%b"}),                       # % is an ordinary character
+    ("a%", set()),
+    ("[ag]d*", {"gd", "adam", "adam_x", "adamw", "adaxm"}),
+    ("gd", {"gd"}),
+    ("'; DROP TABLE rows; --", set()),      # a parameter, never SQL text
+])
+def test_history_rule_globs_are_shell_style(tmp_path: Path, pattern: str, expected: set[str]) -> None:
+    db = _db_with_names(tmp_path)
+    assert set(query_history(db, rule=pattern).rule) == expected
+    assert len(query_history(db)) == 7  # the table is still there
+
+
+def test_history_instance_glob_and_results_folder(tmp_path: Path) -> None:
+    _db_with_names(tmp_path)
+    assert set(query_history(tmp_path, instance="inst_[01]").rule) == {"adam", "adam_x"}  # the folder works too
+    assert len(query_history(str(tmp_path))) == 7
+    with pytest.raises(UserError, match="no history yet"):
+        query_history(tmp_path / "elsewhere")
+
+
+@pytest.mark.parametrize("text, key", [
+    ("2026-03-12", "2026-03-12"),
+    ("2026-03-12T14:30", "2026-03-12T14:30:00"),
+    ("2026-03-12 14:30:05", "2026-03-12T14:30:05"),
+    ("2026-03-12T14:30:05Z", "2026-03-12T14:30:05"),
+    ("2026-03-12T14:30+01:00", "2026-03-12T13:30:00"),  # converted to UTC, as runs record their start
+])
+def test_parse_since_accepts_iso(text: str, key: str) -> None:
+    assert parse_since(text) == key
+
+
+@pytest.mark.parametrize("text", ["yesterday", "12/03/2026", "2026-13-01", "2026-03-12T25:00", "", "last week"])
+def test_parse_since_refuses_anything_else(text: str) -> None:
+    with pytest.raises(UserError, match="--since"):
+        parse_since(text)
+
+
+def test_since_filters_by_utc_start(tmp_path: Path) -> None:
+    db = tmp_path / "history.sqlite"
+    for i, started in enumerate(["2026-03-11T23:59:59Z", "2026-03-12T00:00:00Z", "2026-03-12T14:30:00Z"]):
+        record_history(db, f"r{i}", {"started": started, "status": "complete", "git": {}}, _rows(1, "gd"))
+    assert list(query_history(db, since="2026-03-12").run_id) == ["r1", "r2"]
+    assert list(query_history(db, since="2026-03-12T14:30").run_id) == ["r2"]
+    assert list(query_history(db, since="2026-03-12T15:30+01:00").run_id) == ["r2"]
+    assert list(query_history(db, since="2026-03-12T14:30:01").run_id) == []

@@ -77,6 +77,23 @@ def test_adagrad_and_amsgrad_and_adamw_defaults() -> None:
     assert BUILTIN_RULES["adamw"].defaults()["decay_scaled_by_lr"] is False
 
 
+def test_adamw_default_decay_per_step_is_torchs() -> None:
+    # torch.optim.AdamW defaults: lr = 1e-3, weight_decay = 1e-2, decay lr * weight_decay per step
+    # (torch.optim.AdamW documentation); our unscaled default must decay by the same 1e-5 per step
+    from benchsuite.rules import AdamW
+
+    assert (AdamW.TORCH_DEFAULT_LR, AdamW.TORCH_DEFAULT_WEIGHT_DECAY) == (1e-3, 1e-2)
+    per_step_torch = AdamW.TORCH_DEFAULT_LR * AdamW.TORCH_DEFAULT_WEIGHT_DECAY
+    assert AdamW.defaults()["weight_decay"] == pytest.approx(per_step_torch, rel=1e-15)  # one product's round-off
+    # at a stationary point of f the default shrinks x by exactly that factor, in both conventions
+    x0 = np.array([2.0, -4.0])
+    ours = first_step("adamw", np.zeros(2), x0)
+    torch_like = first_step("adamw", np.zeros(2), x0, weight_decay=1e-2, decay_scaled_by_lr=True)
+    np.testing.assert_allclose(x0 + ours, x0 * (1 - per_step_torch), rtol=1e-15)  # round-off
+    np.testing.assert_allclose(ours, torch_like, rtol=1e-12)  # lr * 1e-2 vs 1e-5: round-off
+    assert torch_equivalent("adamw").torch_kwargs["weight_decay"] == 1e-2
+
+
 # -- problem-aware defaults -----------------------------------------------------------
 def test_gd_step_is_one_over_L() -> None:
     # the classical 1/L step for L-smooth f (Nesterov 2004, section 2.1.5, from memory)
@@ -327,6 +344,54 @@ def test_adamax_zero_gradient_coordinate_stays_put() -> None:
 def test_bad_hyperparameters_raise(name: str, bad: dict) -> None:
     with pytest.raises(ValueError):
         BUILTIN_RULES[name](**bad)
+
+
+DIVIDING_EPS = ["adagrad", "rmsprop", "adam", "adamw", "amsgrad", "nadam", "adadelta"]
+
+
+@pytest.mark.parametrize("name", DIVIDING_EPS)
+@pytest.mark.parametrize("eps", [0.0, -1e-8])
+def test_eps_that_divides_must_be_positive(name: str, eps: float) -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.rulespec import build_rule, parse_rule
+
+    with pytest.raises(UserError, match=rf"rule {name}.*eps.*{eps!r}"):  # names the rule and the value
+        build_rule(parse_rule(name, {"eps": eps}))
+
+
+@pytest.mark.parametrize("name", ["adam", "rmsprop", "adagrad", "nadam", "amsgrad"])
+def test_eps_zero_would_give_nan_on_a_zero_gradient_coordinate(name: str) -> None:
+    # why eps = 0 is refused: the same step with the check bypassed divides 0 by 0
+    cls = BUILTIN_RULES[name]
+    rule = cls()
+    rule.eps = 0.0  # bypass the constructor's check on purpose
+    x = np.ones(2)
+    state = rule.init(x)
+    with np.errstate(all="ignore"):
+        x, state = rule.step(x, np.array([0.0, 1.0]), state)
+    assert np.isnan(x[0]) and np.isfinite(x[1])
+
+
+def test_eps_zero_allowed_where_nothing_divides_by_zero() -> None:
+    # Adamax reads 0/0 as 0 (paper form); AdaGrad with a positive start accumulator never divides by 0
+    BUILTIN_RULES["adamax"](eps=0.0)
+    rule = BUILTIN_RULES["adagrad"](eps=0.0, initial_accumulator=0.1)
+    x = np.ones(2)
+    x, _ = rule.step(x, np.array([0.0, 1.0]), rule.init(x))
+    assert np.all(np.isfinite(x)) and x[0] == 1.0
+
+
+@pytest.mark.parametrize(
+    "bad",
+    [{"weight_decay": 1.0}, {"weight_decay": 2.0, "lr": 0.5, "decay_scaled_by_lr": True}, {"weight_decay": -1e-3},
+     {"beta2": -0.1}, {"beta1": 1.5}, {"lr": 0.0}, {"lr": float("inf")}],
+)
+def test_adamw_ranges_at_the_boundary(bad: dict) -> None:
+    from benchsuite.errors import UserError
+    from benchsuite.rulespec import build_rule, parse_rule
+
+    with pytest.raises(UserError, match=r"^rule adamw\(.*\): "):  # one line naming the rule
+        build_rule(parse_rule("adamw", bad))
 
 
 def test_every_rule_documents_itself() -> None:

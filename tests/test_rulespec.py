@@ -266,3 +266,59 @@ def test_torch_not_imported_for_numpy_rules() -> None:
     )
     out = subprocess.run([sys.executable, "-c", code], cwd=TESTS, capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+# -- hyperparameter values of the kind of the factory's default --------------------------------
+@pytest.mark.parametrize(
+    ("name", "params", "match"),
+    [
+        ("user_rules:NumpyAdam", ["lr=fast"], r"^rule user_rules:NumpyAdam: hyperparameter lr must be a number like its default 0.001, got 'fast'$"),
+        ("user_rules:make_sign_descent", ["lr=true"], r"hyperparameter lr must be a number like its default 0.01, got true$"),
+        ("user_rules:plain_gd", ["lr=0.1,0.2"], r"^rule user_rules:plain_gd: hyperparameter lr must be a number .* got 0.1,0.2$"),
+        ("user_rules:adam_pair", ["b1=high"], r"^rule user_rules:adam_pair: hyperparameter b1 must be a number like its default 0.9, got 'high'$"),
+        ("torch.optim:Adam", ["amsgrad=1"], r"^rule torch.optim:Adam: hyperparameter amsgrad must be true/false like its default false, got 1$"),
+        ("torch.optim:Adam", ["betas=0.9"], r"hyperparameter betas must be a list of numbers like its default 0.9,0.999, got 0.9$"),
+    ],
+)
+def test_a_value_of_the_wrong_kind_is_one_user_error(user_dir: Path, name: str, params, match: str) -> None:
+    with pytest.raises(UserError, match=match):
+        build_rule(parse_rule(name, params))
+
+
+def test_values_of_the_right_kind_pass(user_dir: Path) -> None:
+    # an int where the default is a float is a number; a tuple of numbers for a tuple default
+    assert build_rule(parse_rule("user_rules:NumpyAdam", ["lr=1"])).hyperparams["lr"] == 1
+    hp = build_rule(parse_rule("torch.optim:Adam", ["betas=0.8,0.9", "weight_decay=0.01"])).hyperparams
+    assert hp["betas"] == (0.8, 0.9) and hp["weight_decay"] == 0.01
+    # a mapping (the pytest helpers' params=) is checked the same way
+    with pytest.raises(UserError, match=r"hyperparameter lr must be a number like its default 0.001, got 'fast'"):
+        build_rule(parse_rule("user_rules:NumpyAdam", {"lr": "fast"}))
+
+
+def test_run_with_a_word_for_a_number_exits_2_before_any_work(tmp_path: Path) -> None:
+    import os
+
+    env = {**os.environ, "PYTHONPATH": str(TESTS)}
+    proc = subprocess.run(
+        [sys.executable, "-m", "benchsuite", "run", "--rule", "user_rules:NumpyAdam", "--param", "lr=fast",
+         "--problems", "quad-diag-kappa10-d10"],
+        cwd=tmp_path, env=env, capture_output=True, text=True, timeout=120,
+    )
+    assert not (tmp_path / "results").exists()  # nothing written
+    assert proc.returncode == 2, proc.stdout + proc.stderr
+    assert proc.stderr.strip().splitlines() == [
+        "benchsuite: error: rule user_rules:NumpyAdam: hyperparameter lr must be a number like its default 0.001, "
+        "got 'fast'"
+    ]
+    assert "Traceback" not in proc.stderr
+
+
+# -- optax-style pairs: an object with .init/.update, or a plain tuple ---------------------------
+def test_a_plain_init_update_tuple_is_a_pair(user_dir: Path) -> None:
+    ref = run(build_rule(parse_rule("user_rules:adam_pair", ["learning_rate=0.01"])), Q, 60)
+    from_factory = run(build_rule(parse_rule("user_rules:adam_pair_tuple", ["learning_rate=0.01"])), Q, 60)
+    ready = run(build_rule(parse_rule("user_rules:ADAM_PAIR_TUPLE")), Q, 60)
+    np.testing.assert_array_equal(from_factory, ref)  # the same two functions: bit for bit
+    np.testing.assert_array_equal(ready, ref)
+    with pytest.raises(UserError, match=r"rule user_rules:NOT_CALLABLE_PAIR: tuple is neither a factory"):
+        build_rule(parse_rule("user_rules:NOT_CALLABLE_PAIR"))

@@ -204,7 +204,9 @@ def test_measured_iterations_never_exceed_the_theory_bound(catalogue) -> None:
                 with_bound += 1
                 assert k <= b, (r.case.key(), j, k, b)
         assert not any(r.bound_violated())
-        if r.case.instance.family in quadratic:
+        assert not any(r.below_lower()), (r.case.key(), r.theory_lower)  # the Krylov lower bound holds
+        float32 = dict(r.case.instance.params).get("dtype") == "float32"  # round-off at the targets' size: no bound
+        if r.case.instance.family in quadratic and not float32:
             # textbook parameters on a quadratic: every target has a bound, and it is reached
             assert r.status == "reached" and None not in r.theory_bound, r.case.key()
     assert with_bound > 3 * 4 * len([i for i in instances if i.family in quadratic])  # logistic etc. add more

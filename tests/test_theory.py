@@ -12,7 +12,18 @@ import numpy as np
 import pytest
 
 from benchsuite.problem import Constants
-from benchsuite.theory import applicable_bound, iterations_for, theory_iterations
+from benchsuite.catalogue import load_catalogue
+from benchsuite.rules import GD, NesterovSC
+from benchsuite.rulespec import parse_rule
+from benchsuite.monitor import built as _built
+from benchsuite.runner import Case, monitored_pass, run_cases
+from benchsuite.theory import (
+    applicable_bound,
+    iterations_for,
+    krylov_optimal_measures,
+    lower_bound_iterations,
+    theory_iterations,
+)
 
 EXACT = dict(L_kind="exact", mu_kind="exact")
 
@@ -30,10 +41,19 @@ def _measures(lam: np.ndarray, e: np.ndarray, e0: np.ndarray) -> dict[str, float
 
 
 def _check_along(rule: str, hyper: dict, lam: np.ndarray, step, iters: int = 600) -> None:
+    """The bound for a quadratic family and the general one (family "logistic") both hold."""
     c = Constants(L=float(lam[-1]), mu=float(lam[0]), **EXACT)
     rng = np.random.default_rng(0)
     e0 = rng.standard_normal(lam.size)
-    bounds = {m: applicable_bound(rule, hyper, c, family="quadratic", oracle="full", measure=m)
+    for family in ("quadratic", "logistic"):
+        if rule == "heavy_ball" and family == "logistic":
+            continue  # the heavy-ball bound is for quadratics only
+        _check_family(rule, hyper, c, family, lam, e0, step, iters)
+
+
+def _check_family(rule: str, hyper: dict, c: Constants, family: str, lam: np.ndarray, e0: np.ndarray, step,
+                  iters: int) -> None:
+    bounds = {m: applicable_bound(rule, hyper, c, family=family, oracle="full", measure=m)
               for m in ("subopt", "dist", "gradnorm")}
     assert all(b is not None for b in bounds.values())
     state = None
@@ -43,7 +63,7 @@ def _check_along(rule: str, hyper: dict, lam: np.ndarray, step, iters: int = 600
         got = _measures(lam, e, e0)
         for m, b in bounds.items():
             # the bound is for exact arithmetic; 1e-12 relative slack covers float64 round-off
-            assert got[m] <= b(k) * (1 + 1e-12), (rule, m, k, got[m], b(k))
+            assert got[m] <= b(k) * (1 + 1e-12), (rule, family, m, k, got[m], b(k))
 
 
 @pytest.mark.parametrize("kappa", [3.0, 50.0, 1e3])
@@ -132,3 +152,188 @@ def test_iterations_for_is_the_first_k_below_target(rule: str, target: float) ->
     assert k == brute
     assert theory_iterations(b, [target]) == (k,)
     assert theory_iterations(None, [target, 0.1]) == (None, None)
+
+
+# -- tighter bounds on quadratics -----------------------------------------------------------
+def _kappa10() -> tuple[Constants, dict, dict]:
+    s = math.sqrt(10.0)
+    return (Constants(L=1.0, mu=0.1, **EXACT), {"lr": 1.0}, {"lr": 1.0, "momentum": (s - 1) / (s + 1)})
+
+
+def test_quadratic_bounds_are_the_squared_rates() -> None:
+    c, gd, nes = _kappa10()
+    kw = dict(oracle="full", measure="subopt")
+    q = applicable_bound("gd", gd, c, family="least_squares", **kw)
+    general = applicable_bound("gd", gd, c, family="logistic", **kw)
+    assert q is not None and general is not None
+    assert q(7) == pytest.approx(0.9**14, rel=1e-12) and general(7) == pytest.approx(0.9**7, rel=1e-12)  # round-off
+    n = applicable_bound("nesterov_sc", nes, c, family="ridge", **kw)
+    assert n is not None and n(5) == pytest.approx(11**2 * (1 - 1 / math.sqrt(10)) ** 10, rel=1e-12)
+    # at kappa = 10 the quadratic Nesterov bound sits far below GD's count, the general one does not
+    assert theory_iterations(n, [1e-8]) == (36,)
+    assert theory_iterations(applicable_bound("nesterov_sc", nes, c, family="logistic", **kw), [1e-8]) == (62,)
+
+
+class _MomentumLost(NesterovSC):
+    """BROKEN on purpose: reports the textbook momentum but steps with none (plain GD at 1/L)."""
+
+    def step(self, x, g, state):
+        state["k"] += 1
+        from benchsuite.rules import _XYNesterov
+
+        return _XYNesterov.step_xy(self.lr, 0.0, x, g, state), state
+
+
+class _ShortStep(GD):
+    """BROKEN on purpose: reports lr but steps 0.45 lr."""
+
+    def step(self, x, g, state):
+        state.axpy(-0.45 * self.lr, g, x)
+        return x, state
+
+
+def _count(name: str, rule, targets) -> tuple[int | None, ...]:
+    built = _built(load_catalogue()[name])
+    out = monitored_pass(built.problem, rule, x_star=built.x_star, f_star=built.f_star, targets=targets, budget=10_000)
+    return out.iters
+
+
+@pytest.mark.parametrize("broken", ["momentum", "step"])
+def test_broken_rules_violate_the_quadratic_bound_and_not_the_general_one(broken: str) -> None:
+    name = "quad-diag-kappa10-d10"  # kappa = 10 exactly (L = 1, mu = 0.1)
+    inst = load_catalogue()[name]
+    c = _built(inst).constants
+    _, gd, nes = _kappa10()
+    rule_name, hyper, good, bad = (
+        ("nesterov_sc", nes, NesterovSC(**nes), _MomentumLost(**nes)) if broken == "momentum"
+        else ("gd", gd, GD(**gd), _ShortStep(**gd))
+    )
+    t = inst.targets
+    tight = theory_iterations(applicable_bound(rule_name, hyper, c, family="quadratic", oracle="full",
+                                               measure="subopt"), t)
+    loose = theory_iterations(applicable_bound(rule_name, hyper, c, family="logistic", oracle="full",
+                                               measure="subopt"), t)
+    ok, wrong = _count(name, good, t), _count(name, bad, t)
+    assert all(m is not None and m <= b for m, b in zip(ok, tight)), (ok, tight)
+    assert wrong[-1] is not None and wrong[-1] > tight[-1], (wrong, tight)  # flagged now
+    assert wrong[-1] <= loose[-1], (wrong, loose)  # ... and it was not under the general rate
+
+
+# -- lower bound: the Krylov optimum --------------------------------------------------------
+def _textbook_cg(lam: np.ndarray, w: np.ndarray, steps: int) -> list[float]:
+    """Relative suboptimality of plain conjugate gradients (Hestenes & Stiefel 1952) on diag(lam)."""
+    e = w.copy()
+    r = -lam * e  # residual b - A x = -A e
+    p = r.copy()
+    f0 = lam @ w**2
+    out = [1.0]
+    for _ in range(steps):
+        ap = lam * p
+        a = (r @ r) / (p @ ap)
+        e = e + a * p
+        r_new = r - a * ap
+        p = r_new + (r_new @ r_new) / (r @ r) * p
+        r = r_new
+        out.append(float(lam @ e**2 / f0))
+    return out
+
+
+def test_krylov_optimum_is_conjugate_gradients() -> None:
+    lam = np.geomspace(0.1, 1.0, 10)
+    w = np.random.default_rng(3).standard_normal(10)
+    got = krylov_optimal_measures(lam, w, "subopt", 9)
+    want = _textbook_cg(lam, w, 9)
+    # kappa = 10, 9 steps: plain CG keeps orthogonality to ~1e-13 here; 1e-8 relative (closed form recurrence)
+    np.testing.assert_allclose(got, want, rtol=1e-8, atol=1e-22)
+    assert krylov_optimal_measures(lam, w, "subopt", 10)[10] < 1e-20  # exact after d distinct eigenvalues
+
+
+@pytest.mark.parametrize("measure", ["subopt", "dist", "gradnorm"])
+def test_krylov_optimum_beats_gradient_descent_at_every_step(measure: str) -> None:
+    lam = np.geomspace(1e-3, 1.0, 60)
+    w = np.random.default_rng(4).standard_normal(60)
+    best = krylov_optimal_measures(lam, w, measure, 60)
+    assert np.all(np.diff(best) <= 1e-15)  # nested spaces: never worse (1e-15: round-off)
+    a = {"subopt": 1, "dist": 0, "gradnorm": 2}[measure]
+    e = w.copy()
+    for k in range(1, 61):
+        e = e * (1 - lam)  # GD with step 1/L = 1 lies in the same Krylov space
+        ratio = np.sqrt(lam**a @ e**2 / (lam**a @ w**2))
+        gd = ratio**2 if measure == "subopt" else ratio
+        assert best[k] <= gd * (1 + 1e-9), (k, best[k], gd)  # 1e-9: round-off of both sides
+
+
+QUAD_SMALL = ["quad-diag-kappa10-d10", "quad-diag-kappa100-d50", "quad-rot-kappa1e3-d100", "lsq-kappa1e2-500x50",
+              "ridge-rho0.7-500x50", "quad-diag-tiny-kappa10-d20", "quad-diag-kappa3e3-d30", "lsq-kappa3e3-400x40"]
+
+
+def test_builtin_counts_lie_between_lower_and_upper_bounds() -> None:
+    cat = load_catalogue()
+    rules = ("gd", "nesterov_sc", "heavy_ball", "nesterov")
+    cases = [Case(cat[n], parse_rule(r, {})) for n in QUAD_SMALL for r in rules]
+    for res in run_cases(cases, jobs=1, timing=False, progress=False):
+        case = res.case
+        lower = lower_bound_iterations(case.rule.name, _built(case.instance).problem, case.run_targets,
+                                       measure=case.run_measure, oracle=case.oracle)
+        got = res.outcomes[0].iters
+        assert all(lb is not None for lb in lower), (case.key(), lower)
+        for j, (lb, m) in enumerate(zip(lower, got)):
+            assert m is not None and lb <= m, (case.key(), j, lb, m)
+            ub = res.theory_bound[j]
+            if case.rule.name != "nesterov":  # no published linear rate for the convex schedule
+                assert ub is not None and m <= ub, (case.key(), j, m, ub)
+        # the lower bound is not vacuous: the accelerated methods come within a factor 4 of it
+        # where the dimension is not far below sqrt(kappa) ln(1/t) (on quad-diag-kappa3e3-d30,
+        # d = 30, CG's finite termination puts the bound at 29 and accelerated methods need ~370)
+        if case.rule.name in ("nesterov_sc", "heavy_ball") and case.instance.name in QUAD_SMALL[:5]:
+            assert got[-1] <= 4 * lower[-1], (case.key(), got, lower)
+
+
+def test_lower_bound_applies_only_where_it_holds() -> None:
+    cat = load_catalogue()
+    quad = _built(cat["quad-diag-kappa10-d10"]).problem
+    t = (1e-2, 1e-8)
+    assert lower_bound_iterations("gd", quad, t) == (3, 10)  # 10 distinct eigenvalues: exact at k = 10
+    assert lower_bound_iterations("adam", quad, t) == (None, None)  # diagonal scaling leaves the Krylov space
+    assert lower_bound_iterations("gd", quad, t, oracle="minibatch") == (None, None)
+    assert lower_bound_iterations("my.mod:GD", quad, t) == (None, None)
+    logreg = _built(cat["logreg-dense-500x50"]).problem
+    assert lower_bound_iterations("gd", logreg, t) == (None, None)  # not a quadratic
+    f32 = cat["quad-diag-kappa10-d10"].build(dtype="float32")
+    assert lower_bound_iterations("gd", f32, t) == (None, None)
+    # Longley (kappa ~ 2e19): a dense eigh cannot resolve the small eigenvalues, so no bound
+    assert lower_bound_iterations("gd", cat["nist-longley"].build(), t) == (None, None)
+
+
+def test_a_wrong_measurement_shows_below_the_lower_bound() -> None:
+    # a monitored pass fed an f* that is too high (off by 1e-3 of f(x0) - f*) "meets" 1e-8
+    # as soon as the true suboptimality is 1e-3: nesterov_sc then lands below the Krylov bound
+    name = "quad-rot-kappa1e3-d100"
+    built = _built(load_catalogue()[name])
+    f0 = built.problem.value(built.problem.initial_point())
+    wrong_f_star = built.f_star + 1e-3 * (f0 - built.f_star)
+    hyper = {"lr": 1.0 / built.constants.L,
+             "momentum": (math.sqrt(1e3) - 1) / (math.sqrt(1e3) + 1)}
+    out = monitored_pass(built.problem, NesterovSC(**hyper), x_star=built.x_star, f_star=wrong_f_star,
+                         targets=(1e-8,), budget=10_000)
+    (lower,) = lower_bound_iterations("nesterov_sc", built.problem, (1e-8,))
+    assert out.iters[0] is not None and lower is not None and out.iters[0] < lower, (out.iters, lower)
+
+
+def test_targets_at_or_above_one_get_no_bound() -> None:
+    # a measure is 1 at x_0: a bound of "0 iterations" for t >= 1 would flag every crossing
+    c, gd, _ = _kappa10()
+    b = applicable_bound("gd", gd, c, family="quadratic", oracle="full", measure="subopt")
+    assert theory_iterations(b, [1.0, 2.0, 0.5]) == (None, None, 4)  # 0.9^6 = 0.53 > 0.5 >= 0.9^8 = 0.43
+    quad = _built(load_catalogue()["quad-diag-kappa10-d10"]).problem
+    assert lower_bound_iterations("gd", quad, (1.0, 5.0)) == (None, None)
+
+
+def test_no_upper_bound_for_a_float32_iterate() -> None:
+    # round-off of float32 (~6e-8 per operation) is the size of its tight targets: no exact-arithmetic rate
+    c, gd, _ = _kappa10()
+    kw = dict(family="quadratic", oracle="full", measure="dist")
+    assert applicable_bound("gd", gd, c, dtype="float64", **kw) is not None
+    assert applicable_bound("gd", gd, c, dtype=np.float64, **kw) is not None
+    assert applicable_bound("gd", gd, c, dtype="float32", **kw) is None
+    assert applicable_bound("gd", gd, c, dtype=np.dtype(np.float32), **kw) is None

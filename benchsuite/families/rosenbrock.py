@@ -76,7 +76,8 @@ class Rosenbrock(Problem):
         return Published(
             f=0.0,
             x=(1.0,) * self.dim,
-            source="Rosenbrock (1960), The Computer Journal 3:175-184 (2-D; from memory); chained form: f >= 0, zero only at ones",
+            # the citation is from memory (module docstring); the output names the publication only
+            source="Rosenbrock (1960), The Computer Journal 3:175-184 (2-D); chained form: f >= 0, zero only at ones",
             note="global minimum; for d >= 4 there is also a local minimum near x_1 = -1",
         )
 

@@ -4,5 +4,5 @@
 # wrong (missing or malformed file, instances changed since recording).
 # Point the CI system's test-report collector at gate-junit.xml.
 set -eu
-benchsuite gate --rule kestrel_optim:KestrelAdam --baseline baseline.json \
+benchsuite gate --rule quorvane_optim:QuorvaneAdam --baseline baseline.json \
     --catalogue problems.toml --junit gate-junit.xml --markdown gate-summary.md

@@ -1,4 +1,4 @@
-"""Kestrel Analytics' optimizer module (a made-up team, for the benchsuite example).
+"""Quorvane Analytics' optimizer module (a made-up team, for the benchsuite example).
 
 The team trains its demand-forecasting models with its own Adam variant,
 written against benchsuite's numpy rule contract so that the merge gate and
@@ -7,7 +7,7 @@ the speed-up comparison can run it directly:
     init(x0) -> state
     step(x, g, state) -> (x, state)
 
-``KestrelAdam`` is Adam (Kingma & Ba 2015, Algorithm 1) with the bias
+``QuorvaneAdam`` is Adam (Kingma & Ba 2015, Algorithm 1) with the bias
 corrections folded into the step size,
 ``x <- x - lr_t * m / (sqrt(v) + eps_t)`` with
 ``lr_t = lr * sqrt(1 - beta2^t) / (1 - beta1^t)`` and
@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 
-class KestrelAdam:
+class QuorvaneAdam:
     def __init__(self, lr: float = 1e-3, beta1: float = 0.9, beta2: float = 0.999, eps: float = 1e-8,
                  weight_decay: float = 0.0) -> None:
         self.lr, self.beta1, self.beta2, self.eps, self.weight_decay = lr, beta1, beta2, eps, weight_decay
