@@ -177,8 +177,8 @@ class GateConfig:
         return max(self.slack_iters, math.ceil(self.slack_rel * baseline_iters))
 
     def describe(self) -> str:
-        text = (f"allowance {self.slack_iters} it per seed, max({self.slack_iters} it, {self.slack_rel:.3g}x baseline) "
-                "where round-off-dominated")
+        text = (f"allowance {self.slack_iters} iteration(s) per seed; max({self.slack_iters}, {100 * self.slack_rel:g} %) "
+                "where round-off-dominated; not compared where round-off decides the crossing")
         text += f"; stochastic: seeds in pairs + sign test at {self.sign_alpha:g}"
         if self.noise_factor:
             text += f", also {self.noise_factor:g} x seed range of the baseline"

@@ -298,6 +298,8 @@ def reordered_gradient():
             LinearModel._finish = original
 
     return patched()
+
+
 # =====================================================================================
 # precision bugs
 # (owned by the theory helper; tests/test_default_set.py shows the default set sees them)
