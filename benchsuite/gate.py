@@ -69,6 +69,12 @@ and envelope ``e`` it allows ``|a - b| <= max(rtol max(|a|, |b|) + atol, K e |m|
   over 1e4 steps, so 1e-9 leaves a thousandfold margin; ``atol`` covers the
   cancellation in ``f(x) - f*`` once the suboptimality is ~1e-12 or below.
   Without an envelope (schema 1) the floor alone applies and the gate says so.
+  In a lower working precision the floor is at least ``K`` ulps of it
+  (``100 x 1.2e-7`` in float32): a rewrite rounds each iterate differently by
+  about one ulp, which the envelope does not see where a step is insensitive
+  to its gradient's round-off (Adam's first step is ``-lr sign(g)``); measured
+  on quad-diag-kappa10-d10-float32, an independent Adam differs by 6e-9 at
+  iteration 1 where the float64 floor allows 1e-9.
 * ``K = 100`` (:data:`ENVELOPE_K`): the envelope is the spread of two shadow
   passes, i.e. an estimate of the round-off divergence from a sample of two
   perturbations; another machine's perturbation is a different draw of the
@@ -104,9 +110,11 @@ from __future__ import annotations
 import math
 import statistics
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
+
+import numpy as np
 
 from benchsuite.baseline import Baseline, CaseRecord, SeedRecord
 from benchsuite.errors import UserError
@@ -543,13 +551,16 @@ def _horizon(bo: SeedRecord, co: SeedRecord, tight: float, stochastic: bool, lev
 
 
 def judge_case(
-    base: CaseRecord, cand: CaseRecord, cfg: GateConfig = GateConfig(), *, schema1: bool = False
+    base: CaseRecord, cand: CaseRecord, cfg: GateConfig = GateConfig(), *, schema1: bool = False,
+    dtype: str = "float64",
 ) -> CaseVerdict:
     """Compare one candidate case with its baseline record, seed by seed (pure).
 
     ``schema1``: the baseline ran no stay-converged horizon, so its "held"
     crossings are only its first crossings; then first crossings are compared
     and leaving the target during the horizon is noted, not judged.
+    ``dtype``: the case's working precision; the exact mode's floor is at
+    least ``K`` ulps of it (see the module docstring).
     """
     _compatible(base, cand)
     reasons: list[str] = []
@@ -580,8 +591,10 @@ def judge_case(
                 f"{co.final_dist:.3g} > x_tol {base.x_tol:g} (baseline {bo.final_dist:.3g})"
             )
     if cfg.exact:
+        ulp = float(np.finfo(np.dtype(dtype)).eps) if dtype else 0.0
+        ecfg = replace(cfg, exact_rtol=max(cfg.exact_rtol, cfg.envelope_k * ulp))
         for bo, co in zip(base.outcomes, cand.outcomes):
-            diff = _fingerprint_diff(bo, co, cfg)
+            diff = _fingerprint_diff(bo, co, ecfg)
             if diff:
                 reasons.append(diff)
     has_env = all(bool(o.envelope) for o in base.outcomes)
@@ -613,12 +626,14 @@ def judge(
     *,
     candidate_rule: str = "",
     notes: Sequence[str] = (),
+    dtypes: Sequence[str] = (),
 ) -> GateReport:
-    """Judge every case; ``candidates`` are in the baseline's case order."""
+    """Judge every case; ``candidates`` (and ``dtypes``, default float64) are in the baseline's case order."""
     if len(candidates) != len(baseline.cases):
         raise ValueError(f"{len(candidates)} candidate cases for {len(baseline.cases)} baseline cases")
     schema1 = baseline.schema.endswith("/1")
-    verdicts = tuple(judge_case(b, c, cfg, schema1=schema1) for b, c in zip(baseline.cases, candidates))
+    dts = list(dtypes) or ["float64"] * len(candidates)
+    verdicts = tuple(judge_case(b, c, cfg, schema1=schema1, dtype=d) for b, c, d in zip(baseline.cases, candidates, dts))
     extra = list(notes)
     if schema1:
         extra.append("the baseline is schema 1 (no stay-converged horizon, no held crossings, no round-off "
@@ -783,7 +798,8 @@ def run_gate(
     label = rule
     if overrides:
         label += f" ({', '.join(f'{k}={v!r}' for k, v in sorted(overrides.items()))})"
-    return judge(baseline, candidates, config, candidate_rule=label, notes=run_notes(baseline, rule))
+    dtypes = [c.dtype or str(catalogue[c.instance].params_dict().get("dtype", "float64")) for c in baseline.cases]
+    return judge(baseline, candidates, config, candidate_rule=label, notes=run_notes(baseline, rule), dtypes=dtypes)
 
 
 def run_notes(baseline: Baseline, rule: str) -> list[str]:

@@ -557,6 +557,24 @@ def test_broken_adam_fails_where_roundoff_is_amplified(amplified, variant: str) 
     assert not report.passed or (report.improvements and "conform" in report.summary())
 
 
+def test_exact_mode_in_float32(tmp_path: Path) -> None:
+    """A float32 case: an independent Adam rounds its iterates differently by an ulp of float32 (6e-9 relative
+    in the measure at iteration 1, where Adam's step ignores the gradient's round-off and the envelope is 0);
+    the floor there is 100 float32 ulps. A planted bug still fails."""
+    from benchsuite.catalogue import load_catalogue, select
+    from benchsuite.rulespec import parse_rule
+    from benchsuite.runner import Case, run_cases
+
+    spec = parse_rule("adam", {"lr": 0.1})
+    cases = [Case(instance=i, rule=spec) for i in select(load_catalogue(), "quad-diag-kappa10-d10-float32", None)]
+    results = run_cases(cases, jobs=1, timing=False, progress=False, envelope=True)
+    base = load_baseline(write_baseline(make_baseline(results, rule_label=spec.label), tmp_path / "f32.json"))
+    assert base.cases[0].outcomes[0].envelope[0] == 0.0
+    exact = GateConfig(exact=True)
+    assert run_gate(base, "broken_rules:TextbookAdam", config=exact, jobs=1).passed
+    assert not run_gate(base, "broken_rules:AdamStepOffByOne", config=exact, jobs=1).passed
+
+
 def test_late_blow_up_fails_naming_the_iteration(recorded) -> None:
     """Issue 13: a rule that reaches the tightest target and then leaves it; the horizon sees it."""
     report = gate(recorded, "adam", "broken_rules:AdamLateBlowUp")
