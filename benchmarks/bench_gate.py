@@ -19,7 +19,9 @@ reference cache (so no certified optimum is computed):
    envelope, then the gate, default and ``--exact``, on clean reruns, clean
    rewrites (tests/broken_rules.py: independent implementations, another
    operation order, ``A^T c`` summed in another order) and the planted bugs
-   there. Printed: false alarms and bugs caught, per mode.
+   there (the precision bugs of the theory section too: float32 moments, a
+   clamped v, eps under the root in Adam and AdaGrad). Printed: false alarms
+   and bugs caught, per mode.
 
 Each measurement is repeated ``--repeats`` times (default 3) and the median
 is shown with the min-max range; the load average is printed before and after,
@@ -65,11 +67,13 @@ def _fmt(v: list[float]) -> str:
 
 
 _ADAM_BUGS = ("AdamNoBiasCorrection", "AdamStepOffByOne", "AdamStateReset", "AdamLateBlowUp", "AdamEpsInsideSqrt",
-              "AdamBeta2AsBeta1", "AdamLrSquared")
+              "AdamBeta2AsBeta1", "AdamLrSquared", "AdamFloat32Moments", "AdamClampedV", "AdamEpsUnderRoot")
+_ADAM_CLEAN = ("adam", "broken_rules:TextbookAdam", "broken_rules:PrecisionAdam", "REORDER")
 #: rule, hyperparameters, clean candidates ("REORDER": the rule itself on a reordered gradient), planted bugs
 PLANTED = (
-    ("adam", {"lr": 0.01}, ("adam", "broken_rules:TextbookAdam", "REORDER"), _ADAM_BUGS),
-    ("adam", {"lr": 0.1}, ("adam", "broken_rules:TextbookAdam", "REORDER"), _ADAM_BUGS),
+    ("adam", {"lr": 0.01}, _ADAM_CLEAN, _ADAM_BUGS),
+    ("adam", {"lr": 0.1}, _ADAM_CLEAN, _ADAM_BUGS),
+    ("adagrad", {}, ("adagrad", "broken_rules:PrecisionAdaGrad", "REORDER"), ("AdaGradEpsUnderRoot",)),
     ("rmsprop", {"lr": 0.01}, ("rmsprop", "broken_rules:TextbookRMSProp", "broken_rules:RMSPropReordered", "REORDER"),
      ("RMSPropEpsInsideSqrt", "RMSPropWrongDecay")),
     ("gd", {}, ("gd", "REORDER"), ("GDStepCut8", "GDSlowAfter128", "GDSkipEveryHundred", "GDStepTwice")),
