@@ -200,6 +200,8 @@ class CaseResult:
     #: per target, the fewest iterations any gradient-span method can need on this instance
     #: (conjugate gradients' count; ``None`` where it does not apply): a count below it is impossible
     theory_lower: tuple[int | None, ...] = ()
+    #: per target: below what the problem's precision (float32) can resolve -- neither reached nor failed
+    unreachable: tuple[bool, ...] = ()
 
     @property
     def timed(self) -> bool:
@@ -267,6 +269,7 @@ def result_to_dict(r: CaseResult) -> dict[str, Any]:
         "theory_bound": list(r.theory_bound),
         "bound_source": r.bound_source,
         "theory_lower": list(r.theory_lower),
+        "unreachable": list(r.unreachable),
         "status": r.status,
         "outcomes": outs,
     })
@@ -307,5 +310,5 @@ def result_from_dict(case: Case, d: Mapping[str, Any], traces: Mapping[int, Trac
         ))
     hp = {k: tuple(v) if isinstance(v, list) else v for k, v in d["hyperparams"].items()}
     return CaseResult(case, hp, tuple(outs), tuple(d["theory_bound"]), d["status"], d.get("bound_source", ""),
-                      tuple(d.get("theory_lower") or ()))
+                      tuple(d.get("theory_lower") or ()), tuple(bool(u) for u in d.get("unreachable") or ()))
 

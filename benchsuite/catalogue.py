@@ -8,6 +8,7 @@ Each catalogue file holds ``[[instance]]`` tables (see DEVELOPERS.md)::
     targets = [1e-2, 1e-4, 1e-6]      # required: strictly decreasing, all in (0, 1)
     budget = 2000                     # required: iteration budget, integer > 0
     tier = "small"                    # small | medium | large (default small)
+    dtype = "float64"                 # float64 | float32: the precision the rules run in
     measure = "subopt"                # subopt | dist | gradnorm (default subopt)
     x_tol = 1e-3                      # gate: relative final distance (default 1e-3)
     [instance.params]                 # keyword arguments of the family constructor
@@ -44,6 +45,7 @@ if TYPE_CHECKING:
     from benchsuite.problem import Problem
 
 __all__ = [
+    "DTYPES",
     "ENV_VAR",
     "MEASURES",
     "TIERS",
@@ -61,7 +63,9 @@ ENV_VAR = "BENCHSUITE_CATALOGUE"
 BUILTIN = "builtin"
 
 _REQUIRED = ("name", "family", "targets", "budget")
-_OPTIONAL = ("tier", "measure", "x_tol", "params")
+_OPTIONAL = ("tier", "measure", "x_tol", "params", "dtype")
+#: working precisions an instance may run in (its optimum is always certified in float64)
+DTYPES = ("float64", "float32")
 #: targets/budget of a StRD file given by path, as for the shipped files in
 #: problems/nist.toml: relative suboptimality 1e-2 .. 1e-6, 5000 iterations
 _STRD_TARGETS = (1e-2, 1e-4, 1e-6)
@@ -100,6 +104,9 @@ class Instance:
     measure: str = "subopt"
     x_tol: float = 1e-3
     source: str = ""
+    #: working precision of the runs ("float64" or "float32"); the objective -- and its
+    #: certified optimum -- is the float64 one either way, so it is not in problem_hash
+    dtype: str = "float64"
     #: where the instance came from: ``"builtin"`` (the shipped catalogue), the
     #: catalogue file or StRD ``.dat`` path as given, or ``""`` (made in code)
     catalogue: str = ""
@@ -141,6 +148,23 @@ class Instance:
         except (ValueError, TypeError) as exc:
             raise UserError(f"{self._where('params')}: {exc}") from None
 
+    def build_for_run(self, dtype: str | None = None) -> Problem:
+        """The problem in the precision a run uses: ``dtype`` (e.g. from ``--dtype``) or the instance's.
+
+        float64 builds exactly as :meth:`build` (no ``dtype`` keyword passed, so
+        families without one keep working); float32 passes ``dtype="float32"``.
+        An override also replaces a ``dtype`` given in ``params`` (the older way to
+        ask for float32, which makes the optimum be certified on the float32 build:
+        prefer the instance's ``dtype`` field).
+        """
+        if dtype is None:  # as catalogued (a dtype in params, the older way, is kept as well)
+            return self.build(None if self.dtype == "float64" else self.dtype)
+        if dtype not in DTYPES:
+            raise UserError(f"--dtype: unknown dtype {dtype!r} (one of {', '.join(DTYPES)})")
+        if dtype == "float64" and "dtype" not in self.params_dict():
+            return self.build()
+        return self.build(dtype)
+
     def _identity(self) -> dict[str, Any]:
         """Family, params and -- for families that read files -- a digest of the data."""
         payload: dict[str, Any] = {"family": self.family, "params": dict(self.params)}
@@ -162,6 +186,8 @@ class Instance:
             "measure": self.measure,
             "x_tol": self.x_tol,
         }
+        if self.dtype != "float64":  # float64 instances keep the hashes they had before dtype existed
+            payload["dtype"] = self.dtype
         return hashlib.sha256(_canonical(payload).encode()).hexdigest()
 
     def _where(self, field: str) -> str:
@@ -295,6 +321,9 @@ def _parse_entry(src: str, index: int, entry: Any, origin: str = "") -> Instance
     params = want("params", (dict,), "a table ([instance.params])") if "params" in entry else {}
     for k, v in params.items():
         _check_param_value(f"{label}.params.{k}", v)
+    dtype = want("dtype", (str,), "a string") if "dtype" in entry else "float64"
+    if dtype not in DTYPES:
+        raise UserError(f"{label}.dtype: unknown dtype {dtype!r} (one of {', '.join(DTYPES)})")
 
     inst = Instance(
         name=name,
@@ -306,6 +335,7 @@ def _parse_entry(src: str, index: int, entry: Any, origin: str = "") -> Instance
         measure=measure,
         x_tol=x_tol,
         source=src,
+        dtype=dtype,
         catalogue=origin,
     )
     cls = inst.family_class()

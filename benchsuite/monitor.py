@@ -328,7 +328,7 @@ class Built:
     __slots__ = ("problem", "f_star", "x_star", "constants", "key")
 
     def __init__(self, instance: Any, with_optimum: bool = True, dtype: str | None = None) -> None:
-        self.problem = instance.build(dtype) if dtype else instance.build()
+        self.problem = instance.build_for_run(dtype)
         self.constants = self.problem.constants()
         self.key = instance.problem_hash()
         self.f_star = math.nan
@@ -403,6 +403,41 @@ class PassReport:
     theory_bound: tuple[int | None, ...]
     bound_source: str
     theory_lower: tuple[int | None, ...] = ()
+    #: per target: below what the problem's precision can resolve (float32 only)
+    unreachable: tuple[bool, ...] = ()
+
+
+def unreachable_in(case: Case, b: Built) -> tuple[bool, ...]:
+    """Per target of ``case``: below the resolution floor of a float32 problem (:mod:`benchsuite.precision`).
+
+    float64 problems get no such marks: the floor rule is meant for the
+    precision a rule runs in, and in float64 the catalogue's targets are chosen
+    above it (Longley's kappa ~ 2e19 would otherwise mark them all).
+    """
+    if b.problem.dtype == np.float64 or b.x_star.size == 0:
+        return tuple(False for _ in case.run_targets)
+    from benchsuite.precision import resolution_floor
+
+    c = b.constants
+    x0 = np.asarray(b.problem.initial_point(), dtype=np.float64)
+    f0, g0 = b.problem.value_and_grad(b.problem.initial_point())
+    known = c.L_kind != "unknown" and c.mu_kind != "unknown"
+    res = resolution_floor(case.run_measure, b.problem.dtype, kappa=c.kappa if known else None,
+                           L=c.L if c.L_kind != "unknown" else None, f_star=b.f_star, f0=float(f0),
+                           x_star=b.x_star, x0=x0, g0_norm=float(np.linalg.norm(np.asarray(g0, dtype=np.float64))))
+    return tuple(res.unreachable(case.run_targets))
+
+
+def _expand(outcome: SeedOutcome, keep: Sequence[bool]) -> SeedOutcome:
+    """A pass over the reachable targets only, with None at the unreachable ones."""
+    from dataclasses import replace
+
+    def spread(values: Sequence[Any]) -> tuple[Any, ...]:
+        it = iter(values)
+        return tuple(next(it) if k else None for k in keep)
+
+    return replace(outcome, iters=spread(outcome.iters), grad_calls=spread(outcome.grad_calls),
+                   epochs=spread(outcome.epochs), held=spread(outcome.held) if outcome.held else ())
 
 
 def failed_outcome(case: Case, seed: int, status: str, message: str, iterations: int = 0) -> SeedOutcome:
@@ -418,14 +453,16 @@ def failed_report(case: Case, seed: int, status: str, message: str, iterations: 
 
 
 def _pass(case: Case, b: Built, rule: Any, seed: int, timeout: float | None, check: Any, progress: Any,
-          **extra: Any) -> SeedOutcome:
+          unreachable: Sequence[bool] = (), **extra: Any) -> SeedOutcome:
     deadline = None if timeout is None else time.perf_counter() + timeout
-    return monitored_pass(
+    keep = [not u for u in unreachable] if any(unreachable) else None
+    targets = case.run_targets if keep is None else tuple(t for t, k in zip(case.run_targets, keep) if k)
+    out = monitored_pass(
         b.problem,
         rule,
         x_star=b.x_star,
         f_star=b.f_star,
-        targets=case.run_targets,
+        targets=targets,
         budget=case.run_budget,
         measure=case.run_measure,
         oracle=case.oracle_spec,
@@ -437,6 +474,7 @@ def _pass(case: Case, b: Built, rule: Any, seed: int, timeout: float | None, che
         progress=progress,
         **extra,
     )
+    return out if keep is None else _expand(out, keep)
 
 
 def run_pass(task: PassTask, ready: Callable[[], None] | None = None, progress: Any = None) -> PassReport:
@@ -446,6 +484,7 @@ def run_pass(task: PassTask, ready: Callable[[], None] | None = None, progress: 
         b = built(case.instance, dtype=case.dtype)
         br = build_rule_for(case, b)
         bound, source, lower = _theory(case, b, br.hyperparams)
+        unreachable = unreachable_in(case, b)
     except Exception as exc:  # UserError from a rule or family, a failed certification, ...
         msg = str(exc) if isinstance(exc, UserError) else f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}"
         if ready is not None:
@@ -454,10 +493,10 @@ def run_pass(task: PassTask, ready: Callable[[], None] | None = None, progress: 
     if ready is not None:
         ready()
     try:
-        outcome = _pass(case, b, br.rule, seed, task.timeout, br.check_step, progress)
+        outcome = _pass(case, b, br.rule, seed, task.timeout, br.check_step, progress, unreachable)
         if task.envelope and outcome.status not in ("error", "diverged", "timeout") and outcome.iterations_run:
             shadows = [
-                _pass(case, b, build_rule_for(case, b).rule, seed, task.timeout, None, None,
+                _pass(case, b, build_rule_for(case, b).rule, seed, task.timeout, None, None, unreachable,
                       shadow=s, steps=outcome.iterations_run)
                 for s in range(1, SHADOWS + 1)
             ]
@@ -466,4 +505,4 @@ def run_pass(task: PassTask, ready: Callable[[], None] | None = None, progress: 
             outcome = replace(outcome, envelope=envelope_of(outcome, shadows))
     except Exception as exc:  # e.g. rule.init raised outside the loop, or a zero measure scale
         outcome = failed_outcome(case, seed, "error", f"{type(exc).__name__}: {exc}\n{traceback.format_exc()}")
-    return PassReport(outcome, dict(br.hyperparams), bound, source, lower)
+    return PassReport(outcome, dict(br.hyperparams), bound, source, lower, unreachable)

@@ -95,6 +95,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "bound_violated",
     "theory_lower",
     "below_lower",
+    "unreachable",
     "budget",
     "selected",
 )
@@ -287,6 +288,7 @@ _SQL_TYPES = {
     "bound_violated": "INTEGER",
     "theory_lower": "INTEGER",
     "below_lower": "INTEGER",
+    "unreachable": "INTEGER",
     "replace": "INTEGER",
     "budget": "INTEGER",
     "selected": "INTEGER",

@@ -170,7 +170,8 @@ def run_cases(
             good = next((r for r in reps if r.hyperparams), reps[0])
             outs = tuple(r.outcome for r in reps)
             res = CaseResult(cases[i], good.hyperparams, outs, good.theory_bound or tuple(None for _ in cases[i].run_targets),
-                             aggregate_status([o.status for o in outs]), good.bound_source, good.theory_lower)
+                             aggregate_status([o.status for o in outs]), good.bound_source, good.theory_lower,
+                             good.unreachable)
             results[i] = res
             if on_result is not None:
                 on_result(res)

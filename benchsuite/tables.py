@@ -58,6 +58,7 @@ def table_rows(results: Sequence[CaseResult], selected: Mapping[str, bool] | Non
                     "theory_bound": b,
                     "bound_violated": None if b is None else bool(k is not None and k > b),
                     "theory_lower": lo,
+                    "unreachable": bool(r.unreachable[j]) if j < len(r.unreachable) else False,
                     "below_lower": None if lo is None else bool(k is not None and k < lo),
                     "budget": c.run_budget,
                     "selected": None if selected is None else selected.get(key),
@@ -74,6 +75,6 @@ def to_frame(results: Sequence[CaseResult], selected: Mapping[str, bool] | None 
     df = pd.DataFrame(table_rows(results, selected), columns=list(TABLE_COLUMNS))
     for col in ("batch", "iterations", "held_from", "grad_calls", "theory_bound", "theory_lower", "left_at"):
         df[col] = df[col].astype("Int64")
-    for col in ("replace", "bound_violated", "below_lower", "selected"):
+    for col in ("replace", "bound_violated", "below_lower", "unreachable", "selected"):
         df[col] = df[col].astype("boolean")
     return df

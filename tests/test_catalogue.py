@@ -319,7 +319,10 @@ def test_selection_errors_name_what_the_caller_gave(tmp_path: Path, monkeypatch:
 #: families whose header states x_tol >= sqrt(kappa t_min) (measure subopt), from
 #: mu/2 ||e||^2 <= f - f* <= t (f0 - f*) <= t L/2 ||e0||^2 (closed form); for measure dist the
 #: rule is t_min itself, for gradnorm kappa t_min (mu ||e|| <= ||g||, ||g0|| <= L ||e0||)
-KAPPA_RULE = frozenset({"quadratic", "least_squares", "ridge", "logistic", "softmax", "huber"})
+KAPPA_RULE = frozenset({"quadratic", "least_squares", "ridge", "logistic", "softmax", "huber",
+                        # large and real-data families (problems/large.toml, problems/data.toml headers)
+                        "logistic_sparse", "ridge_sparse", "logistic_data", "softmax_data",
+                        "least_squares_data", "ridge_data"})
 #: non-convex (or mu = 0) families whose header states the local rule from the Hessian at x*:
 #: ||x - x*|| ~ sqrt(2 t (f0 - f*) / lambda_min(H*)), relative to ||x0 - x*|| (second-order model)
 LOCAL_RULE = frozenset({"rosenbrock", "huber"})

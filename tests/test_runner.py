@@ -330,3 +330,22 @@ def test_progress_reaches_the_total_when_cases_fail(quad, capsys) -> None:
     # 3 cases run + 3 counted for timing (the failed ones need no replay but are still counted)
     assert lines[-1].startswith("benchsuite: [6/6]"), lines
     assert [int(ln.split("[")[1].split("/")[0]) for ln in lines] == list(range(1, 7))
+
+
+def test_float32_targets_below_the_resolution_floor_are_neither_reached_nor_failed(catalogue) -> None:
+    # logreg-dense-500x50 in float32: 1e-8 relative suboptimality lies below what float32 resolves
+    # there (benchsuite.precision: the floor is u sqrt(|f*| f0)/(f0 - f*) for the value, u = 6e-8),
+    # so the runner drops it from the pass and marks it; the float64 run marks nothing
+    inst = catalogue["logreg-dense-500x50"]
+    certified_optimum(inst)
+    r32, r64 = run_cases([Case(inst, parse_rule("gd"), dtype="float32"), Case(inst, parse_rule("gd"))],
+                         jobs=1, timing=False, progress=False)
+    assert any(r32.unreachable) and not any(r64.unreachable)
+    assert r32.unreachable[-1]  # the tightest is the first to go
+    for j, u in enumerate(r32.unreachable):
+        if u:
+            assert r32.outcomes[0].iters[j] is None and r32.outcomes[0].held[j] is None
+    assert r32.status == "reached"  # every target it can resolve was met and held
+    again = result_from_dict(r32.case, result_to_dict(r32))
+    assert again.unreachable == r32.unreachable
+    assert to_frame([r32])["unreachable"].tolist() == [bool(u) for u in r32.unreachable]

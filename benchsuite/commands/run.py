@@ -231,6 +231,8 @@ def _count(v: float) -> str:
 
 def _cell(result: Any, j: int) -> str:
     """Iterations to target ``j``: the count, or over several seeds ``median [min..max] reached/seeds``."""
+    if j < len(result.unreachable) and result.unreachable[j]:
+        return "n/a (precision)"
     ks = [o.iters[j] for o in result.outcomes]
     got = sorted(k for k in ks if k is not None)
     if not got:
@@ -337,7 +339,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
             continue
         by_inst.setdefault(r.case.instance.name, []).append(r)
     problems: list[str] = []
-    violated = impossible = False
+    violated = impossible = unresolvable = False
     for name, rs in by_inst.items():
         c = rs[0].case
         targets = c.run_targets
@@ -349,6 +351,7 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
         for r in rs:
             violated = violated or any(r.bound_violated())
             impossible = impossible or any(r.below_lower())
+            unresolvable = unresolvable or any(r.unreachable)
             label = r.case.rule.label
             if chosen:
                 label = r.case.rule.name + "(" + ", ".join(f"{k}={v:.3g}" if isinstance(v, float) else f"{k}={v}"
@@ -367,6 +370,9 @@ def format_results(results: Sequence[Any], selected: Sequence[dict[str, Any]] = 
         lines.extend(_summary(by_inst, lambda r: base_label.get(r.case.key(), r.case.rule.label)))
     if violated:
         lines.append("exceeded: a measured count above its published bound: a bug in the rule, the constants or the runner")
+    if unresolvable:
+        lines.append("n/a (precision): the target lies below what the problem's precision (float32) can resolve "
+                     "there; it counts as neither reached nor failed")
     if impossible:
         lines.append("below the lower bound: fewer iterations than conjugate gradients needs, which no gradient-span "
                      "method can do: the measurement, the oracle or the optimum is wrong")

@@ -26,6 +26,12 @@ BUILTIN: dict[str, str] = {
     "mgh": "benchsuite.families.mgh:MGH",
     "nist_strd": "benchsuite.families.nist:NistStrd",
     "longley": "benchsuite.families.longley:Longley",
+    "logistic_sparse": "benchsuite.families.sparse:SparseLogistic",
+    "ridge_sparse": "benchsuite.families.sparse:SparseRidge",
+    "logistic_data": "benchsuite.families.data:LogisticData",
+    "softmax_data": "benchsuite.families.data:SoftmaxData",
+    "least_squares_data": "benchsuite.families.data:LeastSquaresData",
+    "ridge_data": "benchsuite.families.data:RidgeData",
 }
 
 

@@ -130,6 +130,22 @@ class _LinearRegression(LinearModel):
         v = np.asarray(v, dtype=np.float64)
         return self.A64.T @ (self.A64 @ v) / self.n_samples + self.lam * v
 
+    def hessian_operator(self, x: np.ndarray) -> Any:
+        """``v -> H v`` (the Hessian ``A^T A / n + lam I`` is constant)."""
+        return lambda v: self.hessp(x, v)
+
+    def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray] | None:
+        """``(P(x), D(alpha), w(alpha))`` of the ridge dual at ``alpha = b - A x``; None when ``lam = 0``.
+
+        See :func:`benchsuite.families.sparse.ridge_dual` (without regularisation
+        the dual needs ``A^T alpha = 0`` and has no point matched to ``x``).
+        """
+        if not self.lam:
+            return None
+        from benchsuite.families.sparse import ridge_dual
+
+        return ridge_dual(self.A64, self.b64, self.lam, np.asarray(x, dtype=np.float64))
+
     def cvxpy_objective(self, x: Any) -> Any:
         import cvxpy as cp
 

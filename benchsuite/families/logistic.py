@@ -115,23 +115,47 @@ def _margins(rng: np.random.Generator, A: Any, shape: tuple[int, ...], signal: f
 class _Features(Problem):
     """Feature matrix storage shared by the two families."""
 
+    _norm_A: float | None = None
+
     def _store(self, A: Any, dtype: str) -> None:
         import scipy.sparse as sp
 
         self.dtype = as_dtype(dtype)
         self.sparse = sp.issparse(A)
+        if self.sparse and A.format != "csr":
+            A = A.tocsr()
         self.A64 = A
-        self.A = A.astype(self.dtype) if self.sparse else np.ascontiguousarray(A, dtype=self.dtype)
+        # float64: the working copy is the float64 data itself (no second copy in memory)
+        if self.sparse:
+            self.A = A if A.dtype == self.dtype else A.astype(self.dtype)
+        else:
+            self.A = np.ascontiguousarray(A, dtype=self.dtype)
         self.At = self.A.T.tocsr() if self.sparse else self.A.T
         self.n_samples = A.shape[0]
         self._inv_n = 1.0 / self.n_samples
-        self.norm_A = spectral_norm(A)
+        self._norm_A = None
+
+    @property
+    def norm_A(self) -> float:
+        """``||A||_2`` (:func:`spectral_norm`), computed on first use and kept."""
+        if self._norm_A is None:
+            self._norm_A = spectral_norm(self.A64)
+        return self._norm_A
+
+    def _matvec(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """``out = A x`` (dense: BLAS into ``out``; sparse: the CSR kernel into ``out``)."""
+        if self.sparse:
+            from benchsuite.families.sparse import csr_matvec_into
+
+            return csr_matvec_into(self.A, x, out)
+        return np.matmul(self.A, x, out=out)
 
     def _tmatvec(self, r: np.ndarray, out: np.ndarray) -> np.ndarray:
         """``out = A^T r`` (dense: BLAS into ``out``; sparse: CSR product of the stored transpose)."""
         if self.sparse:
-            out[...] = self.At @ r
-            return out
+            from benchsuite.families.sparse import csr_matvec_into
+
+            return csr_matvec_into(self.At, r, out)
         return np.matmul(self.At, r, out=out)
 
 
@@ -173,12 +197,26 @@ class Logistic(_Features):
             A = dense_features(rng, n, self.dim, scale_range)
         self.w_true, z = _margins(rng, A, (self.dim,), signal)
         # y = +1 with probability sigma(z): a well-specified logistic model
-        self.y64 = np.where(rng.random(n) < 1.0 / (1.0 + np.exp(-z)), 1.0, -1.0)
+        y = np.where(rng.random(n) < 1.0 / (1.0 + np.exp(-z)), 1.0, -1.0)
+        self._setup(A, y, self.lam, dtype, {"sparse": bool(sparse), "density": density if sparse else 1.0,
+                                             "zipf": zipf if sparse else None, "scale_range": scale_range,
+                                             "signal": signal})
+
+    def _setup(self, A: Any, y: np.ndarray, lam: float, dtype: str, params: dict[str, Any]) -> None:
+        """Store features ``A`` (dense or sparse), labels ``y`` in {-1, +1} and scratch buffers.
+
+        Subclasses that build or read their data another way (large seeded CSR
+        data, a user's file) call this instead of ``Logistic.__init__``.
+        """
+        n, d = A.shape
+        self.dim = int(d)
+        self.lam = float(lam)
         self._store(A, dtype)
+        self.y64 = np.asarray(y, dtype=np.float64)
         self.y = self.y64.astype(self.dtype)
         self._negy = -self.y
-        self._params = {"sparse": bool(sparse), "density": density if sparse else 1.0,
-                        "zipf": zipf if sparse else None, "scale_range": scale_range, "signal": signal}
+        self._negy_n = self._negy * self.dtype.type(self._inv_n)  # -y/n: the gradient weights' factor
+        self._params = params
         self._z = np.empty(n, dtype=self.dtype)
         self._a = np.empty(n, dtype=self.dtype)
         self._b = np.empty(n, dtype=self.dtype)
@@ -204,6 +242,35 @@ class Logistic(_Features):
         np.reciprocal(t, out=t)
         return np.multiply(t, negy, out=t)
 
+    def _full_margin(self, x: np.ndarray) -> np.ndarray:
+        """``m = y * (A x)`` over all rows, in the scratch buffer (no temporaries)."""
+        m = self._matvec(x, self._z)
+        return np.multiply(m, self.y, out=m)
+
+    def _full_grad(self, x: np.ndarray, m: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+        """``A^T s + lam x`` with ``s_i = -(y_i / n) sigma(-m_i) = -(y_i/n) / (1 + exp(m_i))``; overwrites ``m``.
+
+        Four in-place passes over the margins (``exp``, ``+1``, a division into
+        the precomputed ``-y/n``) and the transposed product accumulated onto
+        ``lam x`` in ``out``: no temporaries, no extra pass over ``d`` for the
+        ``1/n`` scaling. ``exp`` overflowing to ``inf`` gives the correct limit
+        ``s_i = 0``; both tails keep full relative accuracy.
+        """
+        with np.errstate(over="ignore"):
+            np.exp(m, out=m)
+        m += 1.0
+        s = np.divide(self._negy_n, m, out=m)
+        if out is None:
+            out = np.empty(self.dim, dtype=self.dtype)
+        if self.sparse:
+            from benchsuite.families.sparse import csr_matvec_into
+
+            np.multiply(x, self.lam, out=out)
+            return csr_matvec_into(self.At, s, out, accumulate=True)
+        np.matmul(self.At, s, out=out)
+        out += np.multiply(x, self.lam, out=self._t)
+        return out
+
     def _finish(self, x: np.ndarray, s: np.ndarray, out: np.ndarray | None, scale: float, At: Any) -> np.ndarray:
         if out is None:
             out = np.empty(self.dim, dtype=self.dtype)
@@ -215,26 +282,24 @@ class Logistic(_Features):
         out += np.multiply(x, self.lam, out=self._t)
         return out
 
-    def _mean_softplus(self, t: np.ndarray) -> float:
-        """Mean of ``log(1 + exp(t)) = log1p(exp(-|t|)) + max(t, 0)``, stable, in two buffers."""
-        a = np.abs(t, out=self._a)
+    def _mean_softplus_neg(self, m: np.ndarray) -> float:
+        """Mean of ``log(1 + exp(-m)) = log1p(exp(-|m|)) - min(m, 0)``, stable, in two buffers."""
+        a = np.abs(m, out=self._a)
         np.negative(a, out=a)
         np.exp(a, out=a)
         np.log1p(a, out=a)
-        return (float(a.sum()) + float(np.maximum(t, 0.0, out=self._b).sum())) * self._inv_n
+        return (float(a.sum()) - float(np.minimum(m, 0.0, out=self._b).sum())) * self._inv_n
 
     def value(self, x: np.ndarray) -> float:
-        t = self._neg_margin(x, self.A, self._negy, self._z)
-        return self._mean_softplus(t) + 0.5 * self.lam * float(x @ x)
+        return self._mean_softplus_neg(self._full_margin(x)) + 0.5 * self.lam * float(x @ x)
 
     def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        t = self._neg_margin(x, self.A, self._negy, self._z)
-        return self._finish(x, self._weights(t, self._negy), out, self._inv_n, None)
+        return self._full_grad(x, self._full_margin(x), out)
 
     def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
-        t = self._neg_margin(x, self.A, self._negy, self._z)
-        f = self._mean_softplus(t) + 0.5 * self.lam * float(x @ x)
-        return f, self._finish(x, self._weights(t, self._negy), out, self._inv_n, None)
+        m = self._full_margin(x)
+        f = self._mean_softplus_neg(m) + 0.5 * self.lam * float(x @ x)
+        return f, self._full_grad(x, m, out)
 
     def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         """``(1/|B|) sum_{i in B} grad f_i(x) + lam x``; unbiased for uniform sampling of rows."""
@@ -263,6 +328,44 @@ class Logistic(_Features):
         v = np.asarray(v, dtype=np.float64)
         p = expit(self.y64 * (self.A64 @ x))
         return self.A64.T @ (p * (1 - p) * (self.A64 @ v)) / self.n_samples + self.lam * v
+
+    def hessian_operator(self, x: np.ndarray) -> Any:
+        """``v -> H(x) v`` with the curvature weights ``sigma(1 - sigma) / n`` computed once (Newton-CG)."""
+        from scipy.special import expit
+
+        x = np.asarray(x, dtype=np.float64)
+        p = expit(self.y64 * (self.A64 @ x))
+        p *= 1.0 - p
+        p *= 1.0 / self.n_samples
+        A, lam = self.A64, self.lam
+        return lambda v: A.T @ (p * (A @ v)) + lam * v
+
+    def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray]:
+        """``(P(x), D(alpha), w(alpha))``: the primal, the entropy dual at the dual point matched to ``x``.
+
+        With ``phi(m) = log(1 + exp(-m))`` and labels ``y_i``, the Fenchel dual of
+        ``P(x) = (1/n) sum_i phi(y_i a_i.x) + lam/2 ||x||^2`` is::
+
+            D(alpha) = (1/n) sum_i H(alpha_i) - lam/2 ||w(alpha)||^2,   alpha_i in [0, 1],
+            w(alpha) = A^T (alpha * y) / (lam n),   H(a) = -a log a - (1 - a) log(1 - a)
+
+        (``-phi*(-a) = H(a)``: the binary entropy). Weak duality gives
+        ``D(alpha) <= P* <= P(x)`` for every feasible ``alpha``, so
+        ``P(x) - D(alpha)`` bounds ``P(x) - P*`` whatever produced ``x``. The dual
+        point matched to ``x`` is ``alpha_i = sigma(-y_i a_i.x)`` (``-phi'``);
+        at the optimum ``w(alpha*) = x*`` and the gap is 0. Computed in float64.
+        """
+        from scipy.special import entr, expit
+
+        x = np.asarray(x, dtype=np.float64)
+        m = self.y64 * (self.A64 @ x)
+        n = self.n_samples
+        primal = float(np.logaddexp(0.0, -m).sum()) / n + 0.5 * self.lam * float(x @ x)
+        alpha = expit(-m)
+        w = (self.A64.T @ (alpha * self.y64)) / (self.lam * n)
+        # 1 - alpha = sigma(m), evaluated directly: no cancellation when alpha is near 1
+        dual = float((entr(alpha) + entr(expit(m))).sum()) / n - 0.5 * self.lam * float(w @ w)
+        return primal, dual, w
 
     def cvxpy_objective(self, x: Any) -> Any:
         import cvxpy as cp
@@ -316,20 +419,35 @@ class Softmax(_Features):
         P = _softmax_rows(Z)
         # inverse-CDF draw of one class per row from P
         u = rng.random((n, 1))
-        self.labels = np.minimum((np.cumsum(P, axis=1) < u).sum(axis=1), self.K - 1)
+        labels = np.minimum((np.cumsum(P, axis=1) < u).sum(axis=1), self.K - 1)
+        self.scale_range = float(scale_range)
+        self.signal = float(signal)
+        self._setup(A, labels, self.K, self.lam, dtype)
+
+    def _setup(self, A: Any, labels: np.ndarray, K: int, lam: float, dtype: str) -> None:
+        """Store features ``A`` (dense or CSR), class labels in ``0..K-1`` and scratch buffers.
+
+        Subclasses that read their data (a user's file) call this instead of ``Softmax.__init__``.
+        """
+        n, d = A.shape
+        self.d, self.K, self.dim, self.lam = int(d), int(K), int(d) * int(K), float(lam)
+        self.labels = np.asarray(labels, dtype=np.int64)
         self._store(A, dtype)
         self.Y64 = np.zeros((n, self.K))
         self.Y64[np.arange(n), self.labels] = 1.0
         self.Y = self.Y64.astype(self.dtype)
-        self.scale_range = float(scale_range)
-        self.signal = float(signal)
         self._S = np.empty((n, self.K), dtype=self.dtype)
         self._t = np.empty(self.dim, dtype=self.dtype)
 
     # -- oracle -------------------------------------------------------------
-    def _scores(self, x: np.ndarray, A: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+    def _scores(self, x: np.ndarray, A: Any, out: np.ndarray | None) -> np.ndarray:
         W = x.reshape(self.d, self.K)
-        return A @ W if out is None else np.matmul(A, W, out=out)
+        if out is None:
+            return np.asarray(A @ W)
+        if self.sparse:
+            out[...] = A @ W
+            return out
+        return np.matmul(A, W, out=out)
 
     def _loss(self, S: np.ndarray, Y: np.ndarray) -> float:
         """Mean of ``logsumexp(s_i) - s_{i, y_i}``; leaves ``S`` shifted by its row maxima."""
@@ -344,7 +462,10 @@ class Softmax(_Features):
         S -= Y
         if out is None:
             out = np.empty(self.dim, dtype=self.dtype)
-        np.matmul(A.T, S, out=out.reshape(self.d, self.K))
+        if self.sparse:
+            out.reshape(self.d, self.K)[...] = A.T @ S
+        else:
+            np.matmul(A.T, S, out=out.reshape(self.d, self.K))
         out *= 1.0 / A.shape[0]
         out += np.multiply(x, self.lam, out=self._t)
         return out
