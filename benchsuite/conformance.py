@@ -52,6 +52,8 @@ __all__ = [
     "ConformanceReport",
     "check_conformance",
     "compare_trajectories",
+    "conformance_json",
+    "conformance_table",
     "map_hyperparams",
     "parse_params",
 ]
