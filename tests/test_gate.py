@@ -692,6 +692,20 @@ def test_cli_baseline_batch_skips_problems_that_are_not_finite_sums(tmp_path: Pa
     assert none.returncode == 2 and "none of the selected problems is a finite sum" in none.stderr
 
 
+def test_cli_baseline_records_the_horizon_and_the_gate_reruns_it(tmp_path: Path) -> None:
+    warm_reference(tmp_path / "results" / "reference")
+    rec = _cli(tmp_path, "baseline", "--rule", "gd", "--problems", "quad-diag-kappa10-d10", "--horizon", "300,1",
+               "--out", "h.json", "--jobs", "1")
+    assert rec.returncode == 0, rec.stderr
+    (case,) = load_baseline(tmp_path / "h.json").cases
+    assert case.horizon == (300, 1.0) and case.outcomes[0].horizon == 300  # 61 iterations, then 300 more
+    gate_run = _cli(tmp_path, "gate", "--rule", "gd", "--baseline", "h.json", "--json", "--jobs", "1")
+    assert gate_run.returncode == 0 and json.loads(gate_run.stdout)["passed"] is True
+    bad = _cli(tmp_path, "baseline", "--rule", "gd", "--problems", "quad-diag-kappa10-d10", "--horizon", "x",
+               "--out", "h2.json")
+    assert bad.returncode == 2 and "--horizon 'x'" in bad.stderr and not (tmp_path / "h2.json").exists()
+
+
 def test_baseline_warns_about_transient_targets() -> None:
     from benchsuite.commands.baseline import transient_warnings
 

@@ -18,6 +18,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--batch", type=int, default=None, help="minibatch size (stochastic cases); default: full gradient")
     p.add_argument("--no-replace", action="store_true", help="minibatches drawn without replacement")
     p.add_argument("--seeds", type=int, default=None, help="number of seeds (default: 1 full gradient, 5 minibatch)")
+    p.add_argument("--horizon", metavar="STEPS,MULT", default=None,
+                   help="stay-converged horizon after the tightest target: max(STEPS, MULT x iterations so far) "
+                        "more steps (default 100,0.5); the gate reruns with the recorded horizon")
     p.add_argument("--out", default="results/baseline.json", help="baseline file (default: results/baseline.json)")
     p.add_argument("--force", action="store_true", help="overwrite an existing baseline")
     p.add_argument("--jobs", type=int, default=None, help="worker processes (default: cores)")
@@ -30,7 +33,7 @@ def run(args: argparse.Namespace) -> int:
     from benchsuite.catalogue import load_catalogue, select
     from benchsuite.errors import UserError
     from benchsuite.rulespec import parse_rule
-    from benchsuite.runner import Case, run_cases
+    from benchsuite.runner import Case, parse_horizon, run_cases
     from benchsuite.sysinfo import machine_info
 
     out = Path(args.out)
@@ -54,9 +57,11 @@ def run(args: argparse.Namespace) -> int:
         if not instances:
             raise UserError(f"--batch {args.batch}: none of the selected problems is a finite sum")
 
+    horizon = parse_horizon(args.horizon)
+
     def case(inst: Any, rule: Any) -> Any:
         return Case(instance=inst, rule=rule, oracle=oracle, batch=args.batch, replace=not args.no_replace,
-                    seeds=tuple(range(n_seeds)))
+                    seeds=tuple(range(n_seeds)), horizon=horizon)
 
     if args.sweep is None:
         results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False, **_with_envelope())
