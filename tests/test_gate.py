@@ -681,9 +681,10 @@ def test_cli_baseline_batch_skips_problems_that_are_not_finite_sums(tmp_path: Pa
     """Issue 8 item 3: `baseline --batch` refused the default set; `run --batch` skips non-finite sums."""
     warm_reference(tmp_path / "results" / "reference")
     rec = _cli(tmp_path, "baseline", "--rule", "gd", "--param", "lr=0.01", "--batch", "32", "--seeds", "2",
-               "--problems", "quad-diag-kappa10-d10,lsq-kappa1e2-500x50", "--out", "b.json", "--jobs", "2")
+               "--problems", "quad-diag-kappa10-d10,lsq-kappa1e2-500x50,mgh-beale", "--out", "b.json", "--jobs", "2")
     assert rec.returncode == 0, rec.stderr
     assert "skipped (not finite sums, --batch needs one): quad-diag-kappa10-d10" in rec.stdout
+    assert "skipped (fewer samples than --batch 32): mgh-beale (3)" in rec.stdout  # the default set has it
     base = load_baseline(tmp_path / "b.json")
     assert [c.instance for c in base.cases] == ["lsq-kappa1e2-500x50"] and base.cases[0].stochastic
     assert all(o.envelope for o in base.cases[0].outcomes)  # baselines record the round-off envelope

@@ -49,11 +49,12 @@ def run(args: argparse.Namespace) -> int:
     if not instances:
         raise UserError("--problems: no instance selected")
     oracle = "full" if args.batch is None else "minibatch"
-    skipped: list[str] = []
     if args.batch is not None:  # as `run --batch`: problems that are not finite sums are skipped, and said so
-        instances, skipped = finite_sums(instances, args.batch)
+        instances, skipped, small = finite_sums(instances, args.batch)
         if skipped:
             print(f"skipped (not finite sums, --batch needs one): {', '.join(skipped)}")
+        if small:
+            print(f"skipped (fewer samples than --batch {args.batch}): {', '.join(small)}")
         if not instances:
             raise UserError(f"--batch {args.batch}: none of the selected problems is a finite sum")
 
@@ -83,20 +84,22 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def finite_sums(instances: list[Any], batch: int) -> tuple[list[Any], list[str]]:
-    """The instances a minibatch oracle can run (finite sums with at least ``batch`` samples), and the skipped names."""
-    from benchsuite.errors import UserError
+def finite_sums(instances: list[Any], batch: int) -> tuple[list[Any], list[str], list[str]]:
+    """The instances a minibatch oracle can run: finite sums with at least ``batch`` samples.
 
-    keep, skipped = [], []
+    Also the names skipped as not finite sums, and those (with their sample
+    count) skipped as smaller than the batch.
+    """
+    keep, skipped, small = [], [], []
     for inst in instances:
         n = inst.build().n_samples
         if n is None:
             skipped.append(inst.name)
-            continue
-        if batch > n:
-            raise UserError(f"--batch {batch}: exceeds the {n} samples of {inst.name}")
-        keep.append(inst)
-    return keep, skipped
+        elif batch > n:
+            small.append(f"{inst.name} ({n})")
+        else:
+            keep.append(inst)
+    return keep, skipped, small
 
 
 def transient_warnings(baseline: Any) -> list[str]:
