@@ -48,6 +48,8 @@ COMMANDS: dict[str, str] = {
     "conform": "check a rule step by step against the built-in method it claims to be (exit 0 conforms, 1 not)",
     "compare": "measure the speed-up of rule B over rule A (or one rule at two git revisions, or two saved runs)",
     "rules": "list the built-in update rules: defaults, problem-aware defaults, papers, torch.optim mapping",
+    "report": "draw a run's report: summary, performance and data profiles, convergence curves, provenance (HTML or markdown)",
+    "runs": "list earlier runs (also interrupted ones) or one run's cases and the tracebacks of its failures",
 }
 
 EPILOG = ("exit codes: 0 done; 1 done with a failure (run: a case errored, timed out, diverged or was unstable; "

@@ -448,6 +448,7 @@ class _Setup:
     batch: int | None
     seeds: tuple[int, ...]
     jobs: int | None
+    cluster: str | None = None  # a Dask scheduler address for the monitored passes
 
 
 @dataclass(frozen=True)
@@ -483,7 +484,8 @@ class _Engine:
             params = tuple(parse_param(p) for p in params)  # type: ignore[arg-type]
         spec = parse_rule(s.rule, dict(params))
         self.cases = [Case(instance=i, rule=spec, oracle=s.oracle, batch=s.batch, seeds=s.seeds) for i in s.instances]
-        results = run_cases(self.cases, jobs=s.jobs, timing=False, progress=False)
+        results = run_cases(self.cases, jobs=s.jobs, timing=False, progress=False,
+                            **({"cluster": s.cluster} if getattr(s, "cluster", None) else {}))
         self.hyper = [r.hyperparams for r in results]
         out = []
         for r in results:
@@ -770,6 +772,7 @@ def compare(
     clock: str = "cpu",
     process_pairs: int | None = None,
     fail_above: float | None = None,
+    cluster: str | None = None,
 ) -> Comparison:
     """Measure B against A on the selected problems (see the module docstring).
 
@@ -801,7 +804,7 @@ def compare(
 
     def setup(side: Side) -> _Setup:
         params = tuple(sorted(side.params.items())) if isinstance(side.params, Mapping) else tuple(side.params)
-        return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs)
+        return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs, cluster)
 
     times: list[tuple[list[float], list[float], list[int]]] = [([], [], []) for _ in instances]
     plan: list[_Plan] = []
@@ -885,6 +888,14 @@ def _reached(frame: Any, j: int) -> bool:
     return bool(v == v)  # NaN: not reached
 
 
+def _host(rows: Any, j: int) -> str:
+    """The machine a saved run's target ``j`` was timed on ('' for runs saved before it was recorded)."""
+    if "timed_on" not in rows:
+        return ""
+    v = rows.at[j, "timed_on"]
+    return "" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v)
+
+
 def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comparison:
     """Compare two saved runs' tables (no new measurement).
 
@@ -895,7 +906,9 @@ def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comp
     target and, divided by the iterations, time per step. Saved runs keep
     only the median time, and were measured at different times, so there is
     no interval (whether a change excludes no change is unknown) and no drift
-    cancellation: the ratios are descriptive.
+    cancellation: the ratios are descriptive. A case timed on different
+    machines in the two runs (``timed_on``) gets no time figure: one ratio never
+    mixes machines.
     """
     fa, label_a = _run_table(out, run_a)
     fb, label_b = _run_table(out, run_b)
@@ -921,6 +934,12 @@ def compare_runs(run_a: str, run_b: str, *, out: str | Path = "results") -> Comp
                                         "no target reached and timed in both runs"))
             continue
         j = both[0]
+        host_a, host_b = _host(ra, j), _host(rb, j)
+        if host_a and host_b and host_a != host_b:
+            cases.append(CaseComparison(inst, status_a, status_b, None, None, None, (), (), None, None,
+                                        f"no time figure: timed on different machines (A on {host_a}, "
+                                        f"B on {host_b}); a ratio of the two would mix machines"))
+            continue
         ka, kb = int(ra.at[j, "iterations"]), int(rb.at[j, "iterations"])
         ta, tb = float(ra.at[j, "time_to_target"]), float(rb.at[j, "time_to_target"])
         ttt = Change(math.log(tb / ta))

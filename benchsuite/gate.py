@@ -777,8 +777,9 @@ def run_gate(
     jobs: int | None = None,
     catalogue_paths: Sequence[str | Path] = (),
     timeout: float | None = None,
+    cluster: str | None = None,
 ) -> GateReport:
-    """Rerun the baseline's cases with ``rule`` and judge them."""
+    """Rerun the baseline's cases with ``rule`` and judge them (``cluster``: a Dask scheduler address)."""
     from benchsuite.baseline import record_from_result
     from benchsuite.catalogue import load_catalogue
     from benchsuite.rulespec import parse_param
@@ -793,7 +794,7 @@ def run_gate(
     cases = gate_cases(baseline, rule, overrides, catalogue)
     _check_buildable(cases, baseline)
     limits = {} if timeout is None else {"timeout": timeout}
-    results = run_cases(cases, jobs=jobs, timing=False, progress=False, **limits)
+    results = run_cases(cases, jobs=jobs, timing=False, progress=False, cluster=cluster, **limits)
     candidates = [record_from_result(r) for r in results]
     label = rule
     if overrides:

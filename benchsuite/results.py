@@ -85,6 +85,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "time_to_target",
     "time_spread",
     "time_per_step",
+    "timed_on",
     "status",
     "case_status",
     "final_measure",

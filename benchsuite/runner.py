@@ -129,8 +129,9 @@ def run_cases(
     ``envelope`` records the round-off envelope (two shadow passes per seed;
     see :mod:`benchsuite.monitor`). ``cluster`` is a Dask scheduler address
     (default: local worker processes, ``jobs`` of them, default the number of
-    cores). ``progress``: ``None`` -- a bar on a terminal, plain lines
-    otherwise; ``False`` -- silent. Results come back in the order of ``cases``.
+    cores); on a cluster the timing replays run on the workers too, one per
+    machine at a time (:mod:`benchsuite.executors.cluster`). ``progress``:
+    ``None`` -- a bar on a terminal, plain lines otherwise; ``False`` -- silent. Results come back in the order of ``cases``.
     """
     from threadpoolctl import threadpool_limits
 
@@ -181,6 +182,22 @@ def run_cases(
     executor = make_executor(jobs=jobs, threads=threads, cluster=cluster)
     try:
         executor.run(tasks, collect)
+        time_cases = getattr(executor, "time_cases", None)  # a cluster times on its workers
+        if to_time and time_cases is not None:
+            def timed(i: int, res: CaseResult) -> None:
+                nonlocal done
+                results[i] = res
+                if on_result is not None:
+                    on_result(res)
+                done += 1
+                show(done, "timed " + _summary_line(res))
+
+            for i in to_time:
+                if results[i].timed:
+                    done += 1
+                    show(done, "timed " + _summary_line(results[i]))
+            time_cases([(i, results[i]) for i in to_time if not results[i].timed], repeats, timed)
+            to_time = []
     finally:
         executor.close()
     if to_time:
@@ -490,6 +507,7 @@ def execute(
     out: str | os.PathLike[str] | None = "results",
     resume: str | None = None,
     progress: bool | None = False,
+    cluster: str | None = None,
 ) -> RunOutcome:
     """Plan, run, store (run directory + history) and tabulate a request.
 
@@ -512,6 +530,10 @@ def execute(
         stored = rd.load_cases()
     assert req is not None
     plan = plan_cases(req, out)
+    if cluster:  # a bad address or worker set-up fails here, before a run folder exists
+        from benchsuite.executors.cluster import preflight
+
+        preflight(cluster, plan.cases)
     if rd is None and out is not None:
         rd = RunDir.create(out)
     if not resume:
@@ -522,7 +544,7 @@ def execute(
         "git": git_info(),
         "machine": machine_info(),
         "settings": {"jobs": jobs or os.cpu_count(), "threads": threads, "replays": repeats, "timeout": timeout,
-                     "timing": timing, "diverged_above": DIVERGED_ABOVE},
+                     "timing": timing, "diverged_above": DIVERGED_ABOVE, "cluster": cluster},
         "sweep": parse_sweep(req.sweep).describe() if req.sweep else None,
         "skipped": list(plan.skipped),
         "n_cases": len(plan.cases),
@@ -561,13 +583,20 @@ def execute(
                     for c in plan.cases if c.key() in stored}
         finished.update(previous)
         results = run_cases(plan.cases, jobs=jobs, timing=timing, repeats=repeats, threads=threads,
-                            timeout=timeout, progress=progress, previous=previous, on_result=keep)
+                            timeout=timeout, progress=progress, previous=previous, on_result=keep, cluster=cluster)
         selected = sweep_selection(plan, results, parse_sweep(req.sweep).name) if req.sweep else []
         frame = close("complete", results, selected)
     except KeyboardInterrupt:
         done = [finished[c.key()] for c in plan.cases if c.key() in finished]
         close("partial", done, [])
         raise RunInterrupted(rd.run_id if rd else None) from None
+    except UserError as exc:  # stopped mid-run (e.g. a cluster lost a task): keep what finished, say how to go on
+        done = [finished[c.key()] for c in plan.cases if c.key() in finished]
+        close("partial", done, [])
+        if rd is None:
+            raise
+        raise UserError(f"{exc} (finished cases kept; run {rd.run_id} marked partial: "
+                        f"benchsuite run --resume {rd.run_id})") from None
     return RunOutcome(frame, tuple(results), rd.run_id if rd else None, str(rd.path) if rd else None,
                       "complete", tuple(selected), plan.skipped, plan.notes)
 
@@ -602,6 +631,7 @@ def run(
     out: str | os.PathLike[str] | None = "results",
     resume: str | None = None,
     progress: bool | None = False,
+    cluster: str | None = None,
 ) -> pd.DataFrame:
     """Run rules on catalogue problems and return the tidy table (one row per case x seed x target).
 
@@ -620,7 +650,7 @@ def run(
     results folder (run directory + history; ``None`` writes nothing);
     ``resume``: complete an interrupted run (the other arguments are then
     taken from it). Execution settings (``jobs``, ``threads``, ``repeats``,
-    ``timeout``, ``timing``) are described in :func:`run_cases`.
+    ``timeout``, ``timing``, ``cluster``) are described in :func:`run_cases`.
     """
     req = None if resume else RunRequest.make(
         rules=rules, params=params, problems=problems, tier=tier, catalogue=catalogue, batch=batch,
@@ -628,4 +658,4 @@ def run(
         horizon=horizon, dtype=dtype, start=start,
     )
     return execute(req, jobs=jobs, threads=threads, repeats=repeats, timeout=timeout, timing=timing,
-                   out=out, resume=resume, progress=progress).frame
+                   out=out, resume=resume, progress=progress, cluster=cluster).frame

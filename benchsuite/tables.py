@@ -49,6 +49,7 @@ def table_rows(results: Sequence[CaseResult], selected: Mapping[str, bool] | Non
                     "time_to_target": o.time_to_target[j] if o.time_to_target else None,
                     "time_spread": o.time_spread[j] if o.time_spread else None,
                     "time_per_step": o.time_per_step,
+                    "timed_on": o.timed_on or None,
                     "status": o.status,
                     "case_status": r.status,
                     "final_measure": o.final_measure,

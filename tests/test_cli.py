@@ -43,6 +43,14 @@ def test_help_and_list_do_not_import_cvxpy(argv: list[str], tmp_path: Path) -> N
     assert not mods & {"cvxpy", "torch", "sklearn", "statsmodels", "matplotlib"}
 
 
+@pytest.mark.parametrize("argv", [["--help"], ["report", "--help"], ["runs"], ["runs", "--help"]])
+def test_help_and_runs_do_not_import_plotting(argv: list[str], tmp_path: Path) -> None:
+    """`benchsuite --help` stays fast: matplotlib (and tqdm, pandas) are imported only by what draws or reads tables."""
+    mods = imported_after(argv, tmp_path)
+    assert "benchsuite" in mods
+    assert not mods & {"matplotlib", "tqdm", "pandas", "PIL"}
+
+
 def test_list_table_and_json(tmp_path: Path) -> None:
     r = cli("list", "--tier", "small", "--problems", "quad-*", "--cache-dir", str(tmp_path))
     assert r.returncode == 0, r.stderr

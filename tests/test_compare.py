@@ -641,3 +641,20 @@ def test_scaling_b_scales_the_ratio_and_swapping_inverts_it(ta: list[float], c: 
     assert scaled.interval[0] == pytest.approx(c * base.interval[0], rel=1e-9)
     assert swapped.ratio == pytest.approx(1 / base.ratio, rel=1e-9)
     assert swapped.interval[1] == pytest.approx(1 / base.interval[0], rel=1e-9)
+
+
+def test_saved_runs_timed_on_different_machines_give_no_ratio(tmp_path: Path) -> None:
+    """A ratio never mixes machines: a case timed on host x in one run and host y in the other has no figure."""
+    import pandas as pd
+
+    for run_id, host, secs in (("a", "node-1", 1.0), ("b", "node-2", 2.0), ("c", "node-1", 2.0)):
+        d = tmp_path / "runs" / run_id
+        d.mkdir(parents=True)
+        pd.DataFrame([{"instance": "q", "rule": "adam", "seed": 0, "target_index": 0, "target": 1e-2,
+                       "iterations": 10, "time_to_target": secs, "status": "reached", "timed_on": host}]
+                     ).to_csv(d / "table.csv", index=False)
+    (case,) = compare_runs("a", "b", out=tmp_path).cases
+    assert case.per_step is None and case.to_target is None
+    assert "different machines" in case.note and "node-1" in case.note and "node-2" in case.note
+    (same,) = compare_runs("a", "c", out=tmp_path).cases  # the same machine: the ratio is given
+    assert same.to_target.ratio == pytest.approx(2.0)

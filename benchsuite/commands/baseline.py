@@ -24,6 +24,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", default="results/baseline.json", help="baseline file (default: results/baseline.json)")
     p.add_argument("--force", action="store_true", help="overwrite an existing baseline")
     p.add_argument("--jobs", type=int, default=None, help="worker processes (default: cores)")
+    p.add_argument("--cluster", metavar="ADDRESS", default=None,
+                   help="Dask scheduler address (tcp://host:8786): run the passes on its workers")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -65,9 +67,10 @@ def run(args: argparse.Namespace) -> int:
                     seeds=tuple(range(n_seeds)), horizon=horizon)
 
     if args.sweep is None:
-        results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False, **_with_envelope())
+        results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False, cluster=args.cluster,
+                            **_with_envelope())
     else:
-        results = _swept(args.sweep, spec, instances, case, args.jobs)
+        results = _swept(args.sweep, spec, instances, case, args.jobs, cluster=args.cluster)
     broken = [f"{r.case.instance.name} ({r.status}{_why(r)})" for r in results
               if r.status in ("diverged", "error", "timeout")]
     if broken:
@@ -133,7 +136,8 @@ def _why(result: Any) -> str:
     return f": {errors[0]}" if errors else ""
 
 
-def _swept(text: str, spec: Any, instances: list[Any], case: Any, jobs: int | None) -> list[Any]:
+def _swept(text: str, spec: Any, instances: list[Any], case: Any, jobs: int | None,
+           cluster: str | None = None) -> list[Any]:
     """Run the grid on each instance and keep each instance's selected grid point."""
     from benchsuite.rulespec import parse_rule
     from benchsuite.runner import run_cases
@@ -142,7 +146,7 @@ def _swept(text: str, spec: Any, instances: list[Any], case: Any, jobs: int | No
     sweep = parse_sweep(text)
     grid = [(inst, v) for inst in instances for v in sweep.values]
     cases = [case(inst, parse_rule(spec.name, {**dict(spec.params), sweep.name: v})) for inst, v in grid]
-    results = run_cases(cases, jobs=jobs, timing=False)
+    results = run_cases(cases, jobs=jobs, timing=False, cluster=cluster)
     chosen = []
     for inst in instances:
         best, value = select_best((r, v) for (i, v), r in zip(grid, results) if i.name == inst.name)
@@ -150,5 +154,5 @@ def _swept(text: str, spec: Any, instances: list[Any], case: Any, jobs: int | No
         chosen.append(best)
     envelope = _with_envelope()
     if envelope:  # the grid ran without shadow passes; the selected points get their round-off envelope
-        chosen = run_cases([r.case for r in chosen], jobs=jobs, timing=False, **envelope)
+        chosen = run_cases([r.case for r in chosen], jobs=jobs, timing=False, cluster=cluster, **envelope)
     return chosen

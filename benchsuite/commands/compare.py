@@ -52,6 +52,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--clock", choices=("cpu", "wall"), default="cpu",
                    help="time replays by process CPU time (default; robust on a busy machine) or wall time")
     p.add_argument("--jobs", type=int, default=None, help="worker processes for the monitored passes")
+    p.add_argument("--cluster", metavar="ADDRESS", default=None,
+                   help="Dask scheduler address: run the monitored passes on its workers (replay pairs stay here)")
     p.add_argument("--markdown", metavar="FILE", help="write the comparison as Markdown")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
 
@@ -108,7 +110,7 @@ def run(args: argparse.Namespace) -> int:
                 Side(b, _side_params(args.param, args.param_b), args.rev_b),
                 problems=args.problems, tier=args.tier, oracle="full" if args.batch is None else "minibatch",
                 batch=args.batch, pairs=args.pairs, jobs=args.jobs, catalogue_paths=args.catalogue, clock=args.clock,
-                process_pairs=args.process_pairs, fail_above=limit,
+                process_pairs=args.process_pairs, fail_above=limit, cluster=args.cluster,
             )
         finally:
             signal.signal(signal.SIGTERM, previous)

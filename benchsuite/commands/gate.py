@@ -29,6 +29,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
     p.add_argument("--jobs", type=int, default=None, help="worker processes (default: cores)")
     p.add_argument("--timeout", type=float, default=None, help="per-case wall-clock limit in seconds")
+    p.add_argument("--cluster", metavar="ADDRESS", default=None,
+                   help="Dask scheduler address (tcp://host:8786): run the passes on its workers")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -43,7 +45,7 @@ def run(args: argparse.Namespace) -> int:
                         exact=args.exact, envelope_k=args.envelope_k, sign_alpha=args.sign_alpha)
     baseline = load_baseline(args.baseline)
     report = run_gate(baseline, args.rule, args.param, config=config, jobs=args.jobs,
-                      catalogue_paths=args.catalogue, timeout=args.timeout)
+                      catalogue_paths=args.catalogue, timeout=args.timeout, cluster=args.cluster)
     if args.markdown:
         atomic_write_text(Path(args.markdown), gate_markdown(report))
     if args.junit:

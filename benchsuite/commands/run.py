@@ -100,6 +100,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", action="store_true", help="print the tidy table as JSON (floats at full precision; \"failed\" lists the cases behind exit 1)")
     p.add_argument("--out", default="results", metavar="DIR", help="results folder, created when missing (default ./results)")
     p.add_argument("--resume", metavar="RUN_ID", help="complete an interrupted run (its settings are reused)")
+    p.add_argument("--cluster", metavar="ADDRESS",
+                   help="Dask scheduler address (tcp://host:8786): run the passes and timing replays on its workers")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -126,7 +128,8 @@ def run(args: argparse.Namespace) -> int:
         raise UserError("--resume takes the run's own settings; drop --rule/--param/--sweep/--problems")
     try:
         outcome = execute(req, jobs=args.jobs, threads=args.threads, repeats=args.replays, timeout=args.timeout,
-                          timing=not args.no_timing, out=args.out, resume=args.resume, progress=None)
+                          timing=not args.no_timing, out=args.out, resume=args.resume, progress=None,
+                          cluster=args.cluster)
     except RunInterrupted as exc:
         out = "" if args.out == "results" else f" --out {args.out}"
         if sys.stderr.isatty():
