@@ -45,6 +45,7 @@ COMMANDS: dict[str, str] = {
     "history": "query the history of recorded runs",
     "baseline": "record a rule's results on chosen problems as a baseline file for the gate",
     "gate": "rerun a baseline's cases with a candidate rule and pass or fail it (exit 0/1)",
+    "conform": "check a rule step by step against the built-in method it claims to be (exit 0 conforms, 1 not)",
     "compare": "measure the speed-up of rule B over rule A (or one rule at two git revisions, or two saved runs)",
     "rules": "list the built-in update rules: defaults, problem-aware defaults, papers, torch.optim mapping",
     "report": "draw a run's report: summary, performance and data profiles, convergence curves, provenance (HTML or markdown)",

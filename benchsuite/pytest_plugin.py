@@ -38,7 +38,7 @@ import pytest
 
 from benchsuite.errors import UserError
 
-__all__ = ["ConfigurationError", "assert_converges", "assert_meets_baseline", "convergence_checks"]
+__all__ = ["ConfigurationError", "assert_conforms", "assert_converges", "assert_meets_baseline", "convergence_checks"]
 
 
 class ConfigurationError(UserError, pytest.UsageError):
@@ -176,3 +176,36 @@ def convergence_checks() -> SimpleNamespace:
     """``convergence_checks.converges(...)`` and ``.meets_baseline(...)``: the two helpers (module docstring)."""
     return SimpleNamespace(converges=assert_converges, meets_baseline=assert_meets_baseline)
 
+
+def assert_conforms(
+    rule: str,
+    method: str,
+    params: Mapping[str, Any] | None = None,
+    *,
+    problems: str | None = None,
+    steps: int | None = None,
+    convention: str | None = None,
+    catalogue: Sequence[str | Path] = (),
+) -> Any:
+    """Fail unless ``rule`` follows the built-in ``method`` step by step within its round-off envelope.
+
+    ``params`` are the rule's hyperparameters in its own names (torch-style
+    ``betas=(0.9, 0.999)`` is mapped); see :mod:`benchsuite.conformance`.
+    ``catalogue`` files are relative to the calling test file's folder.
+    Returns the :class:`~benchsuite.conformance.ConformanceReport`. Raises
+    :class:`ConfigurationError` for a mistake in the arguments.
+    """
+    __tracebackhide__ = True
+    from benchsuite.conformance import DEFAULT_STEPS, check_conformance
+
+    base = _caller_folder()
+    try:
+        report = check_conformance(rule, method, dict(params or {}), problems=problems,
+                                   steps=DEFAULT_STEPS if steps is None else steps, convention=convention,
+                                   catalogue=[str(_resolve(c, base)) for c in catalogue])
+    except UserError as exc:
+        raise ConfigurationError(f"assert_conforms: {exc}") from None
+    if not report.conforms:
+        lines = [f"  {c.instance}: {c.describe()}" for c in report.cases if not c.conforms]
+        raise AssertionError(report.summary() + "\n" + "\n".join(lines))
+    return report

@@ -47,32 +47,104 @@ def _it(v: float) -> str:
     return f"{v:.0f}" if float(v).is_integer() else f"{v:.1f}"
 
 
+#: the outcome of a target, in words, as the cells show it (nothing for "same" / "unreached")
+_OUTCOME_WORDS = {
+    "slower": "slower",
+    "lost": "lost",
+    "shifted": "later on every seed",
+    "faster": "faster",
+    "gained": "gained",
+    "transient": "transient in baseline",
+}
+
+
 def _targets_cell(checks: Sequence[TargetCheck]) -> str:
-    """e.g. ``1e-02 12/12  1e-06 130/96!``; ``!`` marks the offending target."""
+    """e.g. ``1e-02 12/12, 1e-06 96/130 slower``: baseline/candidate and the outcome in words."""
     parts = []
     for t in checks:
-        flag = {"slower": "!", "lost": "!", "faster": "+", "gained": "+"}.get(t.outcome, "")
-        parts.append(f"{t.target:.0e} {_it(t.baseline)}/{_it(t.candidate)}{flag}")
-    return "  ".join(parts)
+        word = _OUTCOME_WORDS.get(t.outcome, "")
+        parts.append(f"{t.target:.0e} {_it(t.baseline)}/{_it(t.candidate)}" + (f" {word}" if word else ""))
+    return ", ".join(parts)
+
+
+def _targets_compact(checks: Sequence[TargetCheck]) -> str:
+    """The targets whose outcome is not "same", then how many are (for narrow terminals)."""
+    odd = [t for t in checks if t.outcome not in ("same", "unreached")]
+    rest = len(checks) - len(odd)
+    text = _targets_cell(odd)
+    if rest:
+        text += (", " if text else "") + f"{rest} as baseline"
+    return text
 
 
 def _why(v: CaseVerdict) -> str:
     return "; ".join(v.reasons or v.notes)
 
 
+def _roundoff(v: CaseVerdict) -> str:
+    if not v.has_envelope:
+        return "no round-off envelope recorded"
+    if v.roundoff_from is None:
+        return "not round-off-dominated"
+    return f"round-off-dominated from iteration {v.roundoff_from}"
+
+
+def _clip(text: str, width: int) -> str:
+    return text if len(text) <= width else text[: max(width - 1, 1)] + "…"
+
+
+def _fitted_table(headers: Sequence[str], rows: Sequence[Sequence[str]], width: int, shrink: Sequence[int]) -> str:
+    """:func:`table` narrowed to ``width`` by clipping the ``shrink`` columns, widest first (at least 8 wide)."""
+    rows = [[str(c) for c in r] for r in rows]
+    while True:
+        cells = [list(headers)] + rows
+        widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
+        total = sum(widths) + 2 * (len(widths) - 1)
+        col = max(shrink, key=lambda i: widths[i])
+        new = max(widths[col] - (total - width), 8, len(headers[col]))
+        if total <= width or new >= widths[col]:
+            return table(headers, rows)
+        rows = [[_clip(c, new) if i == col else c for i, c in enumerate(r)] for r in rows]
+
+
+def _terminal_width() -> int:
+    import shutil
+
+    return max(shutil.get_terminal_size((100, 24)).columns, 40)
+
+
 # ------------------------------------------------------------------- gate
-def gate_table(report: GateReport) -> str:
-    """Terminal table: one row per case, then the overall verdict."""
-    rows = [
-        (_MARK[v.verdict], v.instance, v.candidate_status, _targets_cell(v.targets), _why(v))
-        for v in sorted(report.verdicts, key=lambda v: (v.verdict != "fail", v.key))
+def gate_table(report: GateReport, width: int | None = None) -> str:
+    """Terminal table within ``width`` (default: the terminal's), the details below it, then the verdict."""
+    import textwrap
+
+    width = width or _terminal_width()
+    ordered = sorted(report.verdicts, key=lambda v: (v.verdict != "fail", v.key))
+    rows = [(_MARK[v.verdict], v.instance, v.candidate_status, _targets_cell(v.targets)) for v in ordered]
+    out = [
+        *textwrap.wrap(f"gate: {report.candidate_rule} against {report.baseline} (recorded with {report.baseline_rule})",
+                       width, subsequent_indent="  "),
+        *textwrap.wrap(report.config.describe(), width, subsequent_indent="  "),
     ]
-    head = (
-        f"gate: {report.candidate_rule} against {report.baseline} (recorded with {report.baseline_rule})\n"
-        f"{report.config.describe()}\n"
-        "iterations per target: baseline/candidate (! regression, + improvement)\n"
-    )
-    return head + table(("verdict", "instance", "status", "iterations to target", "why"), rows) + "\n" + report.summary()
+    for n in report.notes:
+        out += textwrap.wrap(f"note: {n}", width, subsequent_indent="  ")
+    out += textwrap.wrap("iterations to each target (held crossing): baseline/candidate", width)
+    headers = ("verdict", "instance", "status", "iterations to target")
+    text = table(headers, rows)
+    if max(len(line) for line in text.splitlines()) > width:  # narrow: only the targets that moved
+        rows = [(r[0], r[1], r[2], _targets_compact(v.targets)) for r, v in zip(rows, ordered)]
+        text = _fitted_table(headers, rows, width, (1, 3))
+    out.append(text)
+    details = [v for v in ordered if v.reasons or v.notes]
+    if details:
+        out.append("")
+        out.append("details:")
+        for v in details:
+            out += textwrap.wrap(f"{v.instance} ({v.verdict}; {_roundoff(v)}):", width, subsequent_indent="    ")
+            for line in (*v.reasons, *v.notes):
+                out += textwrap.wrap(line, width, initial_indent="  - ", subsequent_indent="    ")
+    out += textwrap.wrap(report.summary(), width, subsequent_indent="  ")
+    return "\n".join(out)
 
 
 def _md_escape(text: str) -> str:
@@ -80,10 +152,11 @@ def _md_escape(text: str) -> str:
 
 
 def _md_rows(verdicts: Sequence[CaseVerdict]) -> list[str]:
-    lines = ["| verdict | case | iterations (baseline/candidate) | why |", "|---|---|---|---|"]
+    lines = ["| verdict | case | iterations (baseline/candidate) | round-off | why |", "|---|---|---|---|---|"]
     for v in verdicts:
         lines.append(
-            f"| {_MARK[v.verdict]} | `{_md_escape(v.key)}` | {_md_escape(_targets_cell(v.targets))} | {_md_escape(_why(v))} |"
+            f"| {_MARK[v.verdict]} | `{_md_escape(v.key)}` | {_md_escape(_targets_cell(v.targets))} | "
+            f"{_md_escape(_roundoff(v))} | {_md_escape(_why(v))} |"
         )
     return lines
 
@@ -97,13 +170,18 @@ def gate_markdown(report: GateReport) -> str:
         f"(recorded with `{_md_escape(report.baseline_rule)}`); {_md_escape(report.config.describe())}."
     )
     out.append("")
+    for n in report.notes:
+        out.append(f"- Note: {_md_escape(n)}")
+    if report.notes:
+        out.append("")
     if report.failures:
         out.append("### Failing cases")
         out.append("")
         out += _md_rows(report.failures)
         out.append("")
     if report.improvements:
-        out.append("Some cases improved: re-record the baseline (`benchsuite baseline ... --force`) to lock the gain in.")
+        out.append("Some cases improved: check the candidate against the method it implements (`benchsuite conform`), "
+                   "then re-record the baseline (`benchsuite baseline ... --force`) to lock the gain in.")
         out.append("")
     rest = [v for v in report.verdicts if not v.failed]
     if rest:
@@ -131,6 +209,7 @@ def gate_junit(report: GateReport) -> str:
         ("baseline_rule", report.baseline_rule),
         ("candidate_rule", report.candidate_rule),
         ("config", report.config.describe()),
+        *((f"note{i + 1}", n) for i, n in enumerate(report.notes)),
     ):
         ET.SubElement(props, "property", name=k, value=v)
     for v in report.verdicts:
@@ -138,10 +217,11 @@ def gate_junit(report: GateReport) -> str:
         detail = _targets_cell(v.targets)
         if v.failed:
             fail = ET.SubElement(tc, "failure", message="; ".join(v.reasons), type="GateFailure")
-            fail.text = "\n".join(v.reasons) + f"\niterations per target (baseline/candidate): {detail}\n"
+            fail.text = ("\n".join(v.reasons) + f"\niterations per target (baseline/candidate): {detail}\n"
+                         + "".join(f"{n}\n" for n in v.notes) + f"{_roundoff(v)}\n")
         else:
             out = ET.SubElement(tc, "system-out")
-            out.text = "\n".join([f"{v.verdict}: {detail}", *v.notes]) + "\n"
+            out.text = "\n".join([f"{v.verdict}: {detail}", *v.notes, _roundoff(v)]) + "\n"
     ET.indent(suite)
     return '<?xml version="1.0" encoding="utf-8"?>\n' + ET.tostring(suite, encoding="unicode") + "\n"
 
@@ -164,7 +244,10 @@ def gate_json(report: GateReport) -> str:
             "exact": report.config.exact,
             "exact_rtol": report.config.exact_rtol,
             "exact_atol": report.config.exact_atol,
+            "envelope_k": report.config.envelope_k,
+            "sign_alpha": report.config.sign_alpha,
         },
+        "notes": list(report.notes),
         "cases": [
             {
                 "key": v.key,
@@ -174,6 +257,8 @@ def gate_json(report: GateReport) -> str:
                 "notes": list(v.notes),
                 "baseline_status": v.baseline_status,
                 "candidate_status": v.candidate_status,
+                "roundoff_from": v.roundoff_from,
+                "has_envelope": v.has_envelope,
                 "targets": [
                     {
                         "target": t.target,
@@ -181,6 +266,10 @@ def gate_json(report: GateReport) -> str:
                         "candidate_iters": _num(t.candidate),
                         "allowance": t.allowance,
                         "outcome": t.outcome,
+                        "seeds_later": t.seeds_later,
+                        "seeds_earlier": t.seeds_earlier,
+                        "sign_p": t.sign_p,
+                        "dominated": t.dominated,
                     }
                     for t in v.targets
                 ],

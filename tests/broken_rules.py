@@ -192,6 +192,114 @@ class TextbookAdamExtraWork(TextbookAdam):
         return x, s
 
 
+# ------------------------------------------------------------------------------
+# Planted bugs of the kinds seen in real optimizer code (issues 8 and 13): each
+# changes the iterates by far more than round-off somewhere, some only late.
+class GDStepCut8(GDStepTwice):
+    """BROKEN: the step is cut by 8 % (``0.92 lr``): slower on every seed, every problem."""
+
+    def step(self, x, g, s):
+        return x - 0.92 * self.lr * g, s
+
+
+class GDSlowAfter128:
+    """BROKEN: a schedule that goes wrong late: the step is multiplied by 0.8 after iteration 128."""
+
+    def __init__(self, lr: float = 1e-3) -> None:
+        self.lr = lr
+
+    def init(self, x0):
+        return {"t": 0}
+
+    def step(self, x, g, s):
+        s["t"] += 1
+        lr = self.lr * (0.8 if s["t"] > 128 else 1.0)
+        return x - lr * g, s
+
+
+class GDSkipEveryHundred(GDSlowAfter128):
+    """BROKEN: one step in a hundred is skipped (the iterate is returned unchanged): about 1 % slower."""
+
+    def step(self, x, g, s):
+        s["t"] += 1
+        if s["t"] % 100 == 0:
+            return x.copy(), s
+        return x - self.lr * g, s
+
+
+class AdamStateReset(TextbookAdam):
+    """BROKEN: m, v and t are reset every ``RESET_EVERY`` steps (a re-initialised optimizer)."""
+
+    RESET_EVERY = 100
+
+    def step(self, x, g, s):
+        s["k"] = s.get("k", 0) + 1
+        if s["k"] % self.RESET_EVERY == 0:
+            s["m"], s["v"], s["t"] = np.zeros_like(x), np.zeros_like(x), 0
+        return super().step(x, g, s)
+
+
+class AdamLateBlowUp(TextbookAdam):
+    """BROKEN: a "safeguard" that normalises tiny steps: once ``||m_hat / sqrt(v_hat)||`` is
+    small the step is divided by its own norm, so near the optimum (where gradients become
+    tiny) the rule keeps jumping by ``lr``: it reaches the tightest target, then leaves it."""
+
+    def step(self, x, g, s):
+        self._update(g, s)
+        t = s["t"]
+        d = (s["m"] / (1 - self.beta1**t)) / (np.sqrt(s["v"] / (1 - self.beta2**t)) + self.eps)
+        n = float(np.linalg.norm(d))
+        if 0 < n < 1e-3 and float(np.linalg.norm(g)) < 1e-6:
+            d = d / n
+        return x - self.lr * d, s
+
+
+# ------------------------------------------------------------------------------
+# CLEAN rewrites: the same mathematics in another operation order, so only the
+# round-off differs. The gate (and --exact) must pass them.
+class RMSPropReordered(RMSPropEpsInsideSqrt):
+    """CLEAN: RMSProp on the unscaled mean square ``v`` (the built-in keeps ``v / (1 - decay)``),
+    the step as ``(lr * g) / (sqrt(v) + eps)`` and the square as ``g**2``."""
+
+    def step(self, x, g, s):
+        s["v"] = self.decay * s["v"] + (1.0 - self.decay) * g**2
+        return x - (self.lr * g) / (np.sqrt(s["v"]) + self.eps), s
+
+
+def reordered_gradient():
+    """CLEAN: a context manager under which the linear models (least squares, ridge, Huber)
+    sum ``A^T c`` row by row with numpy's pairwise sum instead of the BLAS product:
+    another summation order of the same gradient, as another BLAS would do.
+
+    Patches the family class in this process; worker processes forked inside the
+    ``with`` block inherit it.
+    """
+    import contextlib
+
+    from benchsuite.families.least_squares import LinearModel
+
+    original = LinearModel._finish
+
+    def _finish(self, x, c, A, out):
+        if out is None:
+            out = np.empty(self.dim, dtype=self.dtype)
+        out[:] = (A * c[:, None]).sum(axis=0)
+        out *= 1.0 / A.shape[0]
+        if self.lam:
+            out += np.multiply(x, self.lam, out=self._t)
+        return out
+
+    @contextlib.contextmanager
+    def patched():
+        LinearModel._finish = _finish
+        try:
+            yield
+        finally:
+            LinearModel._finish = original
+
+    return patched()
+
+
 # =====================================================================================
 # precision bugs
 # (owned by the theory helper; tests/test_default_set.py shows the default set sees them)

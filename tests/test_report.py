@@ -55,3 +55,38 @@ def test_json_round_trips() -> None:
     assert doc["passed"] is False
     verdicts = {c["instance"]: c["verdict"] for c in doc["cases"]}
     assert verdicts == {"quad-good": "pass", "quad-bad": "fail", "quad-fast": "improved"}
+
+
+def test_gate_cells_say_the_outcome_in_words() -> None:
+    """Issue 12 item 4: no one-character markers and no legend; the outcome is written in the cell."""
+    text = gate_table(mixed_report(), width=200)
+    assert "1e-06 400/900 slower" in text and "1e-06 400/200 faster" in text
+    assert "regression" not in text and "improvement)" not in text
+    assert "900!" not in text and "200+" not in text
+    md = gate_markdown(mixed_report())
+    assert "400/900 slower" in md and "!" not in md.split("|", 1)[1].replace("<!--", "")
+
+
+def test_gate_table_fits_the_terminal_with_details_below() -> None:
+    """Issue 9: the "why" column was 300-400 characters wide; the table keeps to the width, the reasons follow."""
+    rep = mixed_report()
+    for width in (60, 80, 120):
+        text = gate_table(rep, width=width)
+        assert max(len(line) for line in text.splitlines()) <= width, width
+    text = gate_table(rep, width=80)
+    table_end = text.index("details:")
+    assert "900 iterations vs baseline 400" in text[table_end:]  # the full reason, below the table
+    assert "900 iterations vs baseline 400" not in text[:table_end]
+
+
+def test_gate_outputs_carry_the_report_notes() -> None:
+    from benchsuite.gate import GateReport
+
+    rep = mixed_report()
+    noted = GateReport(**{**rep.__dict__, "notes": ("the baseline was recorded on another machine (CPU a -> b)",)})
+    assert "note: the baseline was recorded on another machine" in gate_table(noted, width=100)
+    assert "- Note: the baseline was recorded on another machine" in gate_markdown(noted)
+    assert json.loads(gate_json(noted))["notes"] == list(noted.notes)
+    root = ET.fromstring(gate_junit(noted).split("\n", 1)[1])
+    props = {p.get("name"): p.get("value") for p in root.find("properties")}
+    assert props["note1"].startswith("the baseline was recorded on another machine")

@@ -18,6 +18,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--batch", type=int, default=None, help="minibatch size (stochastic cases); default: full gradient")
     p.add_argument("--no-replace", action="store_true", help="minibatches drawn without replacement")
     p.add_argument("--seeds", type=int, default=None, help="number of seeds (default: 1 full gradient, 5 minibatch)")
+    p.add_argument("--horizon", metavar="STEPS,MULT", default=None,
+                   help="stay-converged horizon after the tightest target: max(STEPS, MULT x iterations so far) "
+                        "more steps (default 100,0.5); the gate reruns with the recorded horizon")
     p.add_argument("--out", default="results/baseline.json", help="baseline file (default: results/baseline.json)")
     p.add_argument("--force", action="store_true", help="overwrite an existing baseline")
     p.add_argument("--jobs", type=int, default=None, help="worker processes (default: cores)")
@@ -32,7 +35,7 @@ def run(args: argparse.Namespace) -> int:
     from benchsuite.catalogue import load_catalogue, select
     from benchsuite.errors import UserError
     from benchsuite.rulespec import parse_rule
-    from benchsuite.runner import Case, run_cases
+    from benchsuite.runner import Case, parse_horizon, run_cases
     from benchsuite.sysinfo import machine_info
 
     out = Path(args.out)
@@ -48,13 +51,24 @@ def run(args: argparse.Namespace) -> int:
     if not instances:
         raise UserError("--problems: no instance selected")
     oracle = "full" if args.batch is None else "minibatch"
+    if args.batch is not None:  # as `run --batch`: problems that are not finite sums are skipped, and said so
+        instances, skipped, small = finite_sums(instances, args.batch)
+        if skipped:
+            print(f"skipped (not finite sums, --batch needs one): {', '.join(skipped)}")
+        if small:
+            print(f"skipped (fewer samples than --batch {args.batch}): {', '.join(small)}")
+        if not instances:
+            raise UserError(f"--batch {args.batch}: none of the selected problems is a finite sum")
+
+    horizon = parse_horizon(args.horizon)
 
     def case(inst: Any, rule: Any) -> Any:
         return Case(instance=inst, rule=rule, oracle=oracle, batch=args.batch, replace=not args.no_replace,
-                    seeds=tuple(range(n_seeds)))
+                    seeds=tuple(range(n_seeds)), horizon=horizon)
 
     if args.sweep is None:
-        results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False, cluster=args.cluster)
+        results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False, cluster=args.cluster,
+                            **_with_envelope())
     else:
         results = _swept(args.sweep, spec, instances, case, args.jobs, cluster=args.cluster)
     broken = [f"{r.case.instance.name} ({r.status}{_why(r)})" for r in results
@@ -68,7 +82,53 @@ def run(args: argparse.Namespace) -> int:
     if unreached:
         print(f"note: no target reached on {', '.join(unreached)}; "
               "the gate only holds a candidate to what the baseline reached")
+    for line in transient_warnings(baseline):
+        print(f"warning: {line}")
     return 0
+
+
+def finite_sums(instances: list[Any], batch: int) -> tuple[list[Any], list[str], list[str]]:
+    """The instances a minibatch oracle can run: finite sums with at least ``batch`` samples.
+
+    Also the names skipped as not finite sums, and those (with their sample
+    count) skipped as smaller than the batch.
+    """
+    keep, skipped, small = [], [], []
+    for inst in instances:
+        n = inst.build().n_samples
+        if n is None:
+            skipped.append(inst.name)
+        elif batch > n:
+            small.append(f"{inst.name} ({n})")
+        else:
+            keep.append(inst)
+    return keep, skipped, small
+
+
+def transient_warnings(baseline: Any) -> list[str]:
+    """One line per case whose baseline met a target only transiently, or left its tightest target."""
+    out = []
+    for c in baseline.cases:
+        for o in c.outcomes:
+            seed = f" seed {o.seed}" if len(c.outcomes) > 1 else ""
+            gone = [f"{t:.0e} (at iteration {first})" for t, first, h in zip(c.targets, o.iters, o.held)
+                    if first is not None and h is None]
+            if gone:
+                out.append(f"{c.instance}{seed}: met {', '.join(gone)} only transiently; the gate will not "
+                           "hold a candidate to it (a longer budget or a looser target makes it count)")
+            elif o.left_at is not None:
+                out.append(f"{c.instance}{seed}: left the tightest target at iteration {o.left_at} during the "
+                           "stay-converged horizon")
+    return out
+
+
+def _with_envelope() -> dict[str, Any]:
+    """``envelope=True`` for the runner, once it records round-off envelopes (older runners: nothing)."""
+    import inspect
+
+    from benchsuite.runner import run_cases
+
+    return {"envelope": True} if "envelope" in inspect.signature(run_cases).parameters else {}
 
 
 def _why(result: Any) -> str:
@@ -92,4 +152,7 @@ def _swept(text: str, spec: Any, instances: list[Any], case: Any, jobs: int | No
         best, value = select_best((r, v) for (i, v), r in zip(grid, results) if i.name == inst.name)
         print(f"{inst.name}: selected {sweep.name}={value!r}")
         chosen.append(best)
+    envelope = _with_envelope()
+    if envelope:  # the grid ran without shadow passes; the selected points get their round-off envelope
+        chosen = run_cases([r.case for r in chosen], jobs=jobs, timing=False, cluster=cluster, **envelope)
     return chosen

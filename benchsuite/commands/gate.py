@@ -14,9 +14,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--catalogue", action="append", default=[], metavar="PATH", help="extra catalogue file or folder")
     p.add_argument("--slack-iters", type=int, default=1, help="allowed extra iterations (default 1)")
     p.add_argument("--slack-rel", type=float, default=0.01, help="allowed relative extra iterations (default 0.01)")
-    p.add_argument("--noise-factor", type=float, default=1.0,
-                   help="stochastic cases: allowance also c x (max - min) of the baseline seeds (default 1)")
-    p.add_argument("--exact", action="store_true", help="also fail on any change of the trajectory fingerprint")
+    p.add_argument("--noise-factor", type=float, default=0.0,
+                   help="stochastic cases: loosen each seed's allowance by c x (max - min) of the baseline seeds "
+                        "(default 0: seeds are judged in pairs, a clean rerun is bit-identical)")
+    p.add_argument("--exact", action="store_true",
+                   help="also fail when the trajectory fingerprint departs from the baseline's by more than "
+                        "100 x its recorded round-off envelope")
+    p.add_argument("--envelope-k", type=float, default=100.0, metavar="K",
+                   help="--exact allows K x the baseline's round-off envelope at each checkpoint (default 100)")
+    p.add_argument("--sign-alpha", type=float, default=0.05, metavar="P",
+                   help="stochastic cases: fail a shift of the seeds in one direction at sign-test p <= P (default 0.05)")
     p.add_argument("--markdown", metavar="FILE", help="write a pull-request comment in Markdown")
     p.add_argument("--junit", metavar="FILE", help="write JUnit XML (one test case per gate case)")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
@@ -35,7 +42,7 @@ def run(args: argparse.Namespace) -> int:
     from benchsuite.results import atomic_write_text
 
     config = GateConfig(slack_iters=args.slack_iters, slack_rel=args.slack_rel, noise_factor=args.noise_factor,
-                        exact=args.exact)
+                        exact=args.exact, envelope_k=args.envelope_k, sign_alpha=args.sign_alpha)
     baseline = load_baseline(args.baseline)
     report = run_gate(baseline, args.rule, args.param, config=config, jobs=args.jobs,
                       catalogue_paths=args.catalogue, timeout=args.timeout, cluster=args.cluster)
