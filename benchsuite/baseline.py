@@ -200,6 +200,15 @@ def catalogue_of(instance: Any) -> str:
     return getattr(instance, "catalogue", "") or "builtin"
 
 
+def _portable(machine: Mapping[str, Any]) -> dict[str, Any]:
+    """Machine information without local file paths (a committed file should not carry a checkout's folders)."""
+    out = dict(machine)
+    if isinstance(out.get("blas"), list):
+        out["blas"] = [{k: v for k, v in p.items() if k != "filepath"} if isinstance(p, Mapping) else p
+                       for p in out["blas"]]
+    return out
+
+
 def make_baseline(results: Iterable[Any], *, rule_label: str, machine: Mapping[str, Any] | None = None) -> Baseline:
     """A :class:`Baseline` from runner results (cases sorted by key)."""
     cases = tuple(sorted((record_from_result(r) for r in results), key=lambda c: c.key))
@@ -211,7 +220,7 @@ def make_baseline(results: Iterable[Any], *, rule_label: str, machine: Mapping[s
         cases=cases,
         rule_label=rule_label,
         recorded_at=datetime.now(timezone.utc).replace(microsecond=0).isoformat(),
-        machine=dict(machine or {}),
+        machine=_portable(machine or {}),
     )
 
 

@@ -141,7 +141,7 @@ def assert_meets_baseline(
     *,
     slack_iters: int = 1,
     slack_rel: float = 0.01,
-    noise_factor: float = 1.0,
+    noise_factor: float = 0.0,
     exact: bool = False,
     jobs: int | None = 1,
     catalogue: Sequence[str | Path] = (),

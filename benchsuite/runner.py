@@ -395,11 +395,12 @@ def plan_cases(req: RunRequest, out: str | os.PathLike[str] | None = "results") 
             if n is None:
                 skipped.append(inst.name)
                 continue
-            if req.batch > n:
-                raise UserError(f"--batch {req.batch}: exceeds the {n} samples of {inst.name}")
+            if req.batch > n:  # like a problem that is not a finite sum: said, not run
+                notes.append(f"--batch {req.batch}: {inst.name} has only {n} samples; skipped")
+                continue
             keep.append(inst)
         if not keep:
-            raise UserError("--batch: none of the selected problems is a finite sum")
+            raise UserError(f"--batch {req.batch}: none of the selected problems is a finite sum with that many samples")
         instances = keep
     cases: list[Case] = []
     grid: dict[str, tuple[str, float]] = {}

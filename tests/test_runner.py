@@ -349,3 +349,11 @@ def test_float32_targets_below_the_resolution_floor_are_neither_reached_nor_fail
     again = result_from_dict(r32.case, result_to_dict(r32))
     assert again.unreachable == r32.unreachable
     assert to_frame([r32])["unreachable"].tolist() == [bool(u) for u in r32.unreachable]
+
+
+def test_minibatch_plan_skips_problems_with_fewer_samples_than_the_batch() -> None:
+    from benchsuite.runner import RunRequest, plan_cases
+
+    plan = plan_cases(RunRequest.make(rules="gd", problems="mgh-beale,lsq-kappa1e2-500x50", batch=32), None)
+    assert [c.instance.name for c in plan.cases] == ["lsq-kappa1e2-500x50"]
+    assert any("mgh-beale has only 3 samples" in n for n in plan.notes)
