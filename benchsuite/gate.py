@@ -110,7 +110,7 @@ from __future__ import annotations
 import math
 import statistics
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -254,6 +254,10 @@ class GateReport:
     verdicts: tuple[CaseVerdict, ...]
     #: e.g. the baseline's machine differs, the candidate is another rule (not failures)
     notes: tuple[str, ...] = ()
+    #: the candidate's runner results in the baseline's case order, with their traces (for pictures)
+    candidates: tuple[Any, ...] = field(default=(), compare=False, repr=False)
+    #: the candidate's records in the baseline's case order
+    records: tuple[CaseRecord, ...] = field(default=(), compare=False, repr=False)
 
     @property
     def passed(self) -> bool:
@@ -491,8 +495,8 @@ def _close(x: float, y: float, env: float | None, cfg: GateConfig) -> tuple[bool
     return diff <= allowed, rel, allowed / scale if scale > 0 else math.inf
 
 
-def _fingerprint_diff(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> str | None:
-    """The first departure of ``b``'s fingerprint from ``a``'s on their common checkpoints (exact mode)."""
+def _departure(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> tuple[int, float, float, float, float] | None:
+    """The first common checkpoint where ``b``'s fingerprint leaves ``a``'s allowance: (k, x, y, rel, allowed)."""
     theirs = dict(zip(b.checkpoints, b.fingerprint))
     env = dict(zip(a.checkpoints, a.envelope)) if a.envelope else {}
     for k, x in zip(a.checkpoints, a.fingerprint):
@@ -501,13 +505,31 @@ def _fingerprint_diff(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> str | No
         y = theirs[k]
         ok, rel, allowed = _close(x, y, env.get(k), cfg)
         if not ok:
-            e = env.get(k)
-            why = (f"{cfg.envelope_k:g} x round-off envelope {e:.1e}" if e is not None and cfg.envelope_k * e
-                   > cfg.exact_rtol + cfg.exact_atol / max(abs(x), abs(y)) else f"floor rtol {cfg.exact_rtol:g}")
-            return (
-                f"fingerprint departs at iteration {k} (seed {a.seed}): {x:.6g} -> {y:.6g} "
-                f"(relative {rel:.1e} > {allowed:.1e}: {why})"
-            )
+            return k, x, y, rel, allowed
+    return None
+
+
+def departure_iteration(a: SeedRecord, b: SeedRecord, cfg: GateConfig = GateConfig()) -> int | None:
+    """The first checkpoint at which the candidate ``b`` departs from the baseline ``a`` beyond the
+    round-off allowance of ``--exact`` (None: nowhere on their common checkpoints); what the gate's
+    pictures mark."""
+    hit = _departure(a, b, cfg)
+    return None if hit is None else hit[0]
+
+
+def _fingerprint_diff(a: SeedRecord, b: SeedRecord, cfg: GateConfig) -> str | None:
+    """The first departure of ``b``'s fingerprint from ``a``'s on their common checkpoints (exact mode)."""
+    env = dict(zip(a.checkpoints, a.envelope)) if a.envelope else {}
+    hit = _departure(a, b, cfg)
+    if hit is not None:
+        k, x, y, rel, allowed = hit
+        e = env.get(k)
+        why = (f"{cfg.envelope_k:g} x round-off envelope {e:.1e}" if e is not None and cfg.envelope_k * e
+               > cfg.exact_rtol + cfg.exact_atol / max(abs(x), abs(y)) else f"floor rtol {cfg.exact_rtol:g}")
+        return (
+            f"fingerprint departs at iteration {k} (seed {a.seed}): {x:.6g} -> {y:.6g} "
+            f"(relative {rel:.1e} > {allowed:.1e}: {why})"
+        )
     if a.iterations_run == b.iterations_run and b.status not in _BAD_STATUS:
         last = envelope_at(a, a.iterations_run)
         for name, x, y in (("final measure", a.final_measure, b.final_measure), ("final distance", a.final_dist, b.final_dist)):
@@ -800,7 +822,8 @@ def run_gate(
     if overrides:
         label += f" ({', '.join(f'{k}={v!r}' for k, v in sorted(overrides.items()))})"
     dtypes = [c.dtype or str(catalogue[c.instance].params_dict().get("dtype", "float64")) for c in baseline.cases]
-    return judge(baseline, candidates, config, candidate_rule=label, notes=run_notes(baseline, rule), dtypes=dtypes)
+    report = judge(baseline, candidates, config, candidate_rule=label, notes=run_notes(baseline, rule), dtypes=dtypes)
+    return replace(report, candidates=tuple(results), records=tuple(candidates))
 
 
 def run_notes(baseline: Baseline, rule: str) -> list[str]:

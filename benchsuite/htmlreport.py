@@ -614,6 +614,52 @@ def compare_page(comparison: Any) -> str:
     return page(f"benchsuite compare: {comparison.label_b} against {comparison.label_a}", blocks)
 
 
+def gate_figures(report: Any, baseline: Any) -> list[Figure]:
+    """One picture per failing or changed case: the baseline's fingerprint and the candidate's trace
+    overlaid (first seed), the first departure beyond the round-off allowance marked."""
+    from benchsuite import figures
+    from benchsuite.curves import trace_from_checkpoints
+    from benchsuite.gate import departure_iteration
+
+    out = []
+    by_key = {c.key: c for c in baseline.cases}
+    for i, v in enumerate(report.verdicts):
+        if v.verdict == "pass" or i >= len(report.candidates) or v.key not in by_key:
+            continue
+        base = by_key[v.key]
+        cand = report.candidates[i]
+        b0 = base.outcomes[0]
+        c0 = cand.outcomes[0]
+        if c0.trace is None or not b0.checkpoints:
+            continue
+        k = departure_iteration(b0, report.records[i].outcomes[0], report.config) if report.records else None
+        fig = figures.gate_figure(trace_from_checkpoints(b0.checkpoints, b0.fingerprint), c0.trace, base.targets,
+                                  title=f"{v.instance}: {v.verdict}", divergence=k, measure=base.measure,
+                                  labels=(f"baseline ({report.baseline_rule})", f"candidate ({report.candidate_rule})"))
+        what = "no departure beyond round-off at the recorded checkpoints" if k is None else \
+            f"first departure beyond the round-off allowance at iteration {k}"
+        out.append(figure(f"gate-{_slug(v.instance)}-{i}", f"{v.key}: {what} (seed {b0.seed}).", fig))
+    return out
+
+
+def gate_page(report: Any, baseline: Any) -> str:
+    """The page of a gate run: the verdict, notes, one row per case, pictures of failing and changed cases."""
+    rows = tuple((v.instance, v.verdict, "; ".join(v.reasons or v.notes) or "-") for v in report.verdicts)
+    blocks: list[str | Heading | Figure | Table] = [
+        report.summary(),
+        f"Candidate {report.candidate_rule} against the baseline {report.baseline} ({report.baseline_rule}); "
+        f"{report.config.describe()}.",
+        *report.notes,
+        Heading("Cases"),
+        Table(("instance", "verdict", "why"), rows),
+    ]
+    pictures = gate_figures(report, baseline)
+    if pictures:
+        blocks.append(Heading("Failing and changed cases"))
+        blocks.extend(pictures)
+    return page(f"benchsuite gate: {report.candidate_rule}", blocks)
+
+
 # -- markdown ---------------------------------------------------------------------------------
 def _md_cell(c: Any) -> str:
     return str(c).replace("|", "\\|").replace("\n", " ")

@@ -751,12 +751,19 @@ def test_cli_baseline_and_gate_exit_codes(tmp_path: Path) -> None:
     assert "PASS: 1 of 1 cases pass" in ok.stdout
 
     bad = _cli(tmp_path, "gate", "--rule", "broken_rules:AdamLrSquared", "--baseline", "base.json", "--junit", "bad.xml",
-               "--markdown", "bad.md", "--jobs", "1")
+               "--markdown", "bad.md", "--html", "bad.html", "--jobs", "1")
     assert bad.returncode == 1, bad.stdout + bad.stderr
     root = ET.parse(tmp_path / "bad.xml").getroot()  # well-formed XML
     assert root.get("failures") == "1"
     assert "161 iterations vs baseline 32" in root.find("testcase/failure").get("message")
-    assert (tmp_path / "bad.md").read_text().startswith("## ❌ benchsuite gate: FAIL")
+    md = (tmp_path / "bad.md").read_text()
+    assert md.startswith("## ❌ benchsuite gate: FAIL")
+    # the failing case's picture beside the comment, linked from it; the page embeds it
+    pngs = sorted(p.name for p in tmp_path.glob("bad-gate-*.png"))
+    assert len(pngs) == 1 and f"({pngs[0]})" in md and (tmp_path / pngs[0]).read_bytes()[:4] == b"\x89PNG"
+    assert "first departure beyond the round-off allowance at iteration 1 " in md  # the lr^2 bug departs at once
+    page = (tmp_path / "bad.html").read_text()
+    assert page.count("data:image/png;base64,") == 1 and "FAIL: 0 of 1 cases pass" in page
 
     js = _cli(tmp_path, "gate", "--rule", "adam", "--baseline", "base.json", "--json", "--jobs", "1")
     assert js.returncode == 0 and json.loads(js.stdout)["passed"] is True

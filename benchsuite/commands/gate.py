@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import argparse
-
+from pathlib import Path
+from typing import Any
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -24,7 +25,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="--exact allows K x the baseline's round-off envelope at each checkpoint (default 100)")
     p.add_argument("--sign-alpha", type=float, default=0.05, metavar="P",
                    help="stochastic cases: fail a shift of the seeds in one direction at sign-test p <= P (default 0.05)")
-    p.add_argument("--markdown", metavar="FILE", help="write a pull-request comment in Markdown")
+    p.add_argument("--markdown", metavar="FILE",
+                   help="write a pull-request comment in Markdown, with a PNG per failing or changed case beside it")
+    p.add_argument("--html", metavar="FILE",
+                   help="write one self-contained HTML page with the verdicts and a picture per failing or changed case")
     p.add_argument("--junit", metavar="FILE", help="write JUnit XML (one test case per gate case)")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
     p.add_argument("--jobs", type=int, default=None, help="worker processes (default: cores)")
@@ -47,8 +51,25 @@ def run(args: argparse.Namespace) -> int:
     report = run_gate(baseline, args.rule, args.param, config=config, jobs=args.jobs,
                       catalogue_paths=args.catalogue, timeout=args.timeout, cluster=args.cluster)
     if args.markdown:
-        atomic_write_text(Path(args.markdown), gate_markdown(report))
+        write_markdown(Path(args.markdown), gate_markdown(report), report, baseline)
+    if args.html:
+        from benchsuite.htmlreport import gate_page
+
+        atomic_write_text(Path(args.html), gate_page(report, baseline))
     if args.junit:
         atomic_write_text(Path(args.junit), gate_junit(report))
     print(gate_json(report) if args.json else gate_table(report), end="" if args.json else "\n")
     return 0 if report.passed else 1
+
+
+def write_markdown(path: Path, text: str, report: Any, baseline: Any) -> None:
+    """The Markdown comment and, beside it, ``<stem>-<case>.png`` for each failing or changed case, linked."""
+    from benchsuite.htmlreport import gate_figures
+    from benchsuite.results import atomic_write_bytes, atomic_write_text
+
+    links = []
+    for fig in gate_figures(report, baseline):
+        png = path.with_name(f"{path.stem}-{fig.name}.png")
+        atomic_write_bytes(png, fig.png)
+        links.append(f"![{fig.caption}]({png.name})")
+    atomic_write_text(path, text.rstrip("\n") + ("\n\n" + "\n\n".join(links) if links else "") + "\n")
