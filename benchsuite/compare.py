@@ -449,6 +449,7 @@ class _Setup:
     seeds: tuple[int, ...]
     jobs: int | None
     cluster: str | None = None  # a Dask scheduler address for the monitored passes
+    dtype: str | None = None  # float32 / float64 for every problem (None: as catalogued)
 
 
 @dataclass(frozen=True)
@@ -483,7 +484,8 @@ class _Engine:
         if params and isinstance(params[0], str):
             params = tuple(parse_param(p) for p in params)  # type: ignore[arg-type]
         spec = parse_rule(s.rule, dict(params))
-        self.cases = [Case(instance=i, rule=spec, oracle=s.oracle, batch=s.batch, seeds=s.seeds) for i in s.instances]
+        self.cases = [Case(instance=i, rule=spec, oracle=s.oracle, batch=s.batch, seeds=s.seeds,
+                           **({"dtype": s.dtype} if getattr(s, "dtype", None) else {})) for i in s.instances]
         results = run_cases(self.cases, jobs=s.jobs, timing=False, progress=False,
                             **({"cluster": s.cluster} if getattr(s, "cluster", None) else {}))
         self.hyper = [r.hyperparams for r in results]
@@ -773,6 +775,7 @@ def compare(
     process_pairs: int | None = None,
     fail_above: float | None = None,
     cluster: str | None = None,
+    dtype: str | None = None,
 ) -> Comparison:
     """Measure B against A on the selected problems (see the module docstring).
 
@@ -804,7 +807,7 @@ def compare(
 
     def setup(side: Side) -> _Setup:
         params = tuple(sorted(side.params.items())) if isinstance(side.params, Mapping) else tuple(side.params)
-        return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs, cluster)
+        return _Setup(instances, side.rule, params, oracle, batch, (seed,), jobs, cluster, dtype)
 
     times: list[tuple[list[float], list[float], list[int]]] = [([], [], []) for _ in instances]
     plan: list[_Plan] = []

@@ -483,6 +483,15 @@ def test_cli_compare_json_with_one_param(tmp_path: Path) -> None:
     assert page.startswith("<!DOCTYPE html>") and "data:image/png;base64," in page and "http" not in page.lower()
 
 
+def test_cli_compare_in_float32(tmp_path: Path) -> None:
+    """--dtype float32 reaches compare: both sides run the problem in single precision, with equal counts."""
+    out32 = cli("gd", "gd", "--problems", PROBLEM, "--pairs", "2", "--jobs", "1", "--json", "--dtype", "float32")
+    out64 = cli("gd", "gd", "--problems", PROBLEM, "--pairs", "2", "--jobs", "1", "--json")
+    assert out32.returncode == 0 and out64.returncode == 0, out32.stderr + out64.stderr
+    c32, c64 = json.loads(out32.stdout)["cases"][0], json.loads(out64.stdout)["cases"][0]
+    assert c32["iters_a"] == c32["iters_b"] and c64["iters_a"] == c64["iters_b"]
+
+
 def test_cli_option_names() -> None:
     """The options of `compare`, in the tool's own vocabulary (replay pairs, process pairs, a speed limit)."""
     from benchsuite.cli import build_parser
@@ -491,7 +500,7 @@ def test_cli_option_names() -> None:
     names = {o for a in sub._actions for o in a.option_strings}
     assert names == {"-h", "--help", "--param", "--param-a", "--param-b", "--rev-a", "--rev-b", "--runs", "--out",
                      "--problems", "--tier", "--catalogue", "--batch", "--pairs", "--process-pairs", "--fail-above",
-                     "--clock", "--jobs", "--markdown", "--html", "--json", "--cluster"}
+                     "--clock", "--jobs", "--markdown", "--html", "--json", "--cluster", "--dtype"}
 
 
 def test_readme_prints_no_machine_dependent_figure() -> None:

@@ -798,3 +798,17 @@ def test_builtin_rules_meet_their_committed_baselines(path: Path) -> None:
     assert path.stem == rule
     report = run_gate(base, rule, jobs=1)
     assert report.passed, [(v.key, v.reasons) for v in report.failures]
+
+
+def test_cli_float32_baseline_and_gate(tmp_path: Path) -> None:
+    """--dtype float32 end to end: the baseline records the precision, the gate reruns it so and passes."""
+    warm_reference(tmp_path / "results" / "reference")
+    rec = _cli(tmp_path, "baseline", "--rule", "gd", "--problems", "quad-diag-kappa10-d10", "--dtype", "float32",
+               "--out", "b32.json", "--jobs", "1")
+    assert rec.returncode == 0, rec.stderr
+    doc = json.loads((tmp_path / "b32.json").read_text())
+    assert doc["cases"][0]["dtype"] == "float32" and "dtype=float32" in doc["cases"][0]["key"]
+    ok = _cli(tmp_path, "gate", "--rule", "gd", "--baseline", "b32.json", "--exact", "--dtype", "float32", "--jobs", "1")
+    assert ok.returncode == 0, ok.stdout + ok.stderr
+    mismatch = _cli(tmp_path, "gate", "--rule", "gd", "--baseline", "b32.json", "--dtype", "float64")
+    assert mismatch.returncode == 2 and "record it with `benchsuite baseline --dtype float64`" in mismatch.stderr

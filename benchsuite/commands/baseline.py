@@ -18,6 +18,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--batch", type=int, default=None, help="minibatch size (stochastic cases); default: full gradient")
     p.add_argument("--no-replace", action="store_true", help="minibatches drawn without replacement")
     p.add_argument("--seeds", type=int, default=None, help="number of seeds (default: 1 full gradient, 5 minibatch)")
+    p.add_argument("--dtype", choices=("float32", "float64"),
+                   help="record every problem in this precision (default: as catalogued); the gate reruns it so")
     p.add_argument("--horizon", metavar="STEPS,MULT", default=None,
                    help="stay-converged horizon after the tightest target: max(STEPS, MULT x iterations so far) "
                         "more steps (default 100,0.5); the gate reruns with the recorded horizon")
@@ -64,7 +66,7 @@ def run(args: argparse.Namespace) -> int:
 
     def case(inst: Any, rule: Any) -> Any:
         return Case(instance=inst, rule=rule, oracle=oracle, batch=args.batch, replace=not args.no_replace,
-                    seeds=tuple(range(n_seeds)), horizon=horizon)
+                    seeds=tuple(range(n_seeds)), horizon=horizon, dtype=args.dtype)
 
     if args.sweep is None:
         results = run_cases([case(i, spec) for i in instances], jobs=args.jobs, timing=False, cluster=args.cluster,

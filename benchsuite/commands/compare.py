@@ -56,6 +56,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="Dask scheduler address: run the monitored passes on its workers (replay pairs stay here)")
     p.add_argument("--markdown", metavar="FILE",
                    help="write the comparison as Markdown, with its forest plot as a PNG beside the file")
+    p.add_argument("--dtype", choices=("float32", "float64"),
+                   help="both sides run every problem in this precision (default: as catalogued)")
     p.add_argument("--html", metavar="FILE",
                    help="write one self-contained HTML page: summary, forest plots, per-case table, method")
     p.add_argument("--json", action="store_true", help="print JSON instead of the table")
@@ -113,7 +115,7 @@ def run(args: argparse.Namespace) -> int:
                 Side(b, _side_params(args.param, args.param_b), args.rev_b),
                 problems=args.problems, tier=args.tier, oracle="full" if args.batch is None else "minibatch",
                 batch=args.batch, pairs=args.pairs, jobs=args.jobs, catalogue_paths=args.catalogue, clock=args.clock,
-                process_pairs=args.process_pairs, fail_above=limit, cluster=args.cluster,
+                process_pairs=args.process_pairs, fail_above=limit, cluster=args.cluster, dtype=args.dtype,
             )
         finally:
             signal.signal(signal.SIGTERM, previous)

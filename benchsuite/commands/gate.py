@@ -25,6 +25,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="--exact allows K x the baseline's round-off envelope at each checkpoint (default 100)")
     p.add_argument("--sign-alpha", type=float, default=0.05, metavar="P",
                    help="stochastic cases: fail a shift of the seeds in one direction at sign-test p <= P (default 0.05)")
+    p.add_argument("--dtype", choices=("float32", "float64"),
+                   help="check that the baseline was recorded in this precision (the cases rerun in the recorded one)")
     p.add_argument("--markdown", metavar="FILE",
                    help="write a pull-request comment in Markdown, with a PNG per failing or changed case beside it")
     p.add_argument("--html", metavar="FILE",
@@ -38,9 +40,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from pathlib import Path
-
     from benchsuite.baseline import load_baseline
+    from benchsuite.errors import UserError
     from benchsuite.gate import GateConfig, run_gate
     from benchsuite.report import gate_json, gate_junit, gate_markdown, gate_table
     from benchsuite.results import atomic_write_text
@@ -48,6 +49,11 @@ def run(args: argparse.Namespace) -> int:
     config = GateConfig(slack_iters=args.slack_iters, slack_rel=args.slack_rel, noise_factor=args.noise_factor,
                         exact=args.exact, envelope_k=args.envelope_k, sign_alpha=args.sign_alpha)
     baseline = load_baseline(args.baseline)
+    if args.dtype:
+        other = sorted({c.instance for c in baseline.cases if (c.dtype or "float64") != args.dtype})
+        if other:
+            raise UserError(f"{args.baseline}: --dtype {args.dtype}: the baseline recorded {', '.join(other)} in another "
+                            f"precision; record it with `benchsuite baseline --dtype {args.dtype}`")
     report = run_gate(baseline, args.rule, args.param, config=config, jobs=args.jobs,
                       catalogue_paths=args.catalogue, timeout=args.timeout, cluster=args.cluster)
     if args.markdown:
