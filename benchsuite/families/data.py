@@ -57,7 +57,7 @@ from typing import Any
 import numpy as np
 
 from benchsuite.datafiles import DataSet, file_digest, labels_for, read_data
-from benchsuite.families.least_squares import LinearModel
+from benchsuite.families.least_squares import SquaredLoss
 from benchsuite.families.logistic import Logistic, Softmax, _check_lam, spectral_norm
 from benchsuite.problem import Constants, as_dtype
 
@@ -232,7 +232,7 @@ class SoftmaxData(_DataMixin, Softmax):
         return {**self._data_params, "K": self.K, "lam": self.lam}
 
 
-class _LinearData(_DataMixin, LinearModel):
+class _LinearData(_DataMixin, SquaredLoss):
     """``1/(2n) ||A x - b||^2 + lam/2 ||x||^2`` on read data, dense (BLAS) or sparse (CSR kernel)."""
 
     #: dense designs up to this many columns get an SVD (exact L and mu) and a direct solve
@@ -290,31 +290,6 @@ class _LinearData(_DataMixin, LinearModel):
             return csr_matvec_into(self.At, s, out, accumulate=True)
         return self._finish(x, r, self.A, out)
 
-    def value(self, x: np.ndarray) -> float:
-        r = self._res(x)
-        return 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-
-    def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        return self._grad_from(x, self._res(x), out)
-
-    def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
-        r = self._res(x)
-        f = 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-        return f, self._grad_from(x, r, out)
-
-    def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        """``(1/|B|) A_B^T (A_B x - b_B) + lam x``; unbiased for uniform sampling of rows."""
-        Ab = self.A[idx]
-        r = Ab @ x - self.b[idx]
-        if out is None:
-            out = np.empty(self.dim, dtype=self.dtype)
-        out[...] = Ab.T @ r
-        out *= 1.0 / len(idx)
-        if self.lam:
-            out += np.multiply(x, self.lam, out=self._t)
-        return out
-
-    # -- what is known ---------------------------------------------------
     def constants(self) -> Constants:
         n, lam = self.n_samples, self.lam
         if self.singular_values is not None:

@@ -78,7 +78,47 @@ class LinearModel(Problem):
         return np.zeros(self.dim, dtype=self.dtype)
 
 
-class _LinearRegression(LinearModel):
+class SquaredLoss(LinearModel):
+    """The oracle of ``1/(2n) ||A x - b||^2 + lam/2 ||x||^2`` through two hooks.
+
+    ``_res(x)`` returns the residual ``A x - b`` (in a scratch buffer) and
+    ``_grad_from(x, r, out)`` turns a residual into the gradient; the dense
+    defaults use BLAS, a sparse family overrides both with its CSR kernel.
+    Needs ``A``, ``b``, ``lam``, ``_inv_n``, ``_r`` and ``_t``.
+    """
+
+    def _res(self, x: np.ndarray) -> np.ndarray:
+        return self._residual(x, self.A, self.b, self._r)
+
+    def _grad_from(self, x: np.ndarray, r: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+        return self._finish(x, r, self.A, out)
+
+    def value(self, x: np.ndarray) -> float:
+        r = self._res(x)
+        return 0.5 * self._inv_n * float(r @ r) + self._reg(x)
+
+    def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        return self._grad_from(x, self._res(x), out)
+
+    def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
+        r = self._res(x)
+        f = 0.5 * self._inv_n * float(r @ r) + self._reg(x)
+        return f, self._grad_from(x, r, out)
+
+    def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """``(1/|B|) A_B^T (A_B x - b_B) + lam x``; unbiased for uniform sampling of rows (dense or CSR rows)."""
+        Ab = self.A[idx]
+        r = Ab @ x - self.b[idx]
+        if out is None:
+            out = np.empty(self.dim, dtype=self.dtype)
+        out[...] = Ab.T @ r
+        out *= 1.0 / len(idx)
+        if self.lam:
+            out += np.multiply(x, self.lam, out=self._t)
+        return out
+
+
+class _LinearRegression(SquaredLoss):
     """Shared oracle of ``1/(2n) ||A x - b||^2 + lam/2 ||x||^2`` (see module docstring)."""
 
     _constants_note = ""
@@ -96,24 +136,6 @@ class _LinearRegression(LinearModel):
         self._inv_n = 1.0 / self.n_samples
         self._r = np.empty(self.n_samples, dtype=self.dtype)
         self._t = np.empty(self.dim, dtype=self.dtype)
-
-    # -- oracle -------------------------------------------------------------
-    def value(self, x: np.ndarray) -> float:
-        r = self._residual(x, self.A, self.b, self._r)
-        return 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-
-    def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        return self._finish(x, self._residual(x, self.A, self.b, self._r), self.A, out)
-
-    def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
-        r = self._residual(x, self.A, self.b, self._r)
-        f = 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-        return f, self._finish(x, r, self.A, out)
-
-    def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        """``(1/|B|) A_B^T (A_B x - b_B) + lam x``; unbiased for uniform sampling of rows."""
-        Ab = self.A[idx]
-        return self._finish(x, self._residual(x, Ab, self.b[idx], None), Ab, out)
 
     # -- what is known ---------------------------------------------------
     def constants(self) -> Constants:

@@ -51,7 +51,7 @@ from typing import Any
 
 import numpy as np
 
-from benchsuite.families.least_squares import LinearModel, positive_int
+from benchsuite.families.least_squares import SquaredLoss, positive_int
 from benchsuite.families.logistic import Logistic, _check_lam, spectral_norm
 from benchsuite.problem import Constants, as_dtype
 
@@ -187,7 +187,7 @@ class SparseLogistic(Logistic):
         return out
 
 
-class SparseRidge(LinearModel):
+class SparseRidge(SquaredLoss):
     """Ridge regression ``1/(2n) ||A x - b||^2 + lam/2 ||x||^2`` on a seeded power-law CSR design.
 
     Parameters: ``n`` rows, ``d`` unknowns, ``lam > 0``, ``row_nnz``, ``zipf``,
@@ -261,30 +261,6 @@ class SparseRidge(LinearModel):
         np.multiply(x, self.lam, out=out)
         return csr_matvec_into(self.At, s, out, accumulate=True)
 
-    def value(self, x: np.ndarray) -> float:
-        r = self._res(x)
-        return 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-
-    def grad(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        return self._grad_from(x, self._res(x), out)
-
-    def value_and_grad(self, x: np.ndarray, out: np.ndarray | None = None) -> tuple[float, np.ndarray]:
-        r = self._res(x)
-        f = 0.5 * self._inv_n * float(r @ r) + self._reg(x)
-        return f, self._grad_from(x, r, out)
-
-    def minibatch_grad(self, x: np.ndarray, idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-        """``(1/|B|) A_B^T (A_B x - b_B) + lam x``; unbiased for uniform sampling of rows."""
-        Ab = self.A[idx]
-        r = Ab @ x - self.b[idx]
-        if out is None:
-            out = np.empty(self.dim, dtype=self.dtype)
-        out[...] = Ab.T @ r
-        out *= 1.0 / len(idx)
-        out += np.multiply(x, self.lam, out=self._t)
-        return out
-
-    # -- what is known ---------------------------------------------------
     def constants(self) -> Constants:
         return Constants(
             L=self.norm_A**2 / self.n_samples + self.lam, mu=self.lam, L_kind="bound", mu_kind="bound",
