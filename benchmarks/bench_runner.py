@@ -211,7 +211,7 @@ def phases() -> None:
                 timed_outcome(r.case, r.hyperparams, o, 5)
     wall, cpu = time.perf_counter() - t0, _cpu() - c0
     print(f"{'timing replays':<28} {wall:7.1f} s wall {cpu:7.1f} s CPU")
-    (w0, c_no), (w1, c_h) = figures["passes, no horizon"], figures["passes, default horizon"]
+    (_, c_no), (_, c_h) = figures["passes, no horizon"], figures["passes, default horizon"]
     print(f"the horizon adds {100 * (c_h / c_no - 1):.0f} % to the passes' CPU time ({c_h - c_no:.1f} s)")
     print(f"estimate for 2 idle cores: passes {c_h / 2:.1f} s + replays {cpu:.1f} s = {c_h / 2 + cpu:.1f} s")
     print(f"load average: {os.getloadavg()}")

@@ -1052,8 +1052,6 @@ def _route_dual(problem: Problem, x: np.ndarray, s_f: float) -> Route | None:
 
 def _compute_large(instance: Instance, problem: Problem) -> Optimum:
     """The large-scale certificate: a primal route and the duality gap at its point (module section)."""
-    import dataclasses
-
     import scipy.linalg  # noqa: F401  load scipy's BLAS now: the limit below covers loaded libraries only
     import scipy.optimize  # noqa: F401
     import scipy.sparse.linalg  # noqa: F401
@@ -1066,7 +1064,6 @@ def _compute_large(instance: Instance, problem: Problem) -> Optimum:
 
 
 def _compute_large_pinned(instance: Instance, problem: Problem) -> Optimum:
-    import dataclasses
 
     x0 = np.asarray(problem.initial_point(), dtype=np.float64)
     f0 = float(problem.value(x0))

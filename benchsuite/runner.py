@@ -27,7 +27,6 @@ from __future__ import annotations
 import os
 import platform
 import statistics
-import sys
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field

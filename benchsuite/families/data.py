@@ -303,26 +303,6 @@ class _LinearData(_DataMixin, SquaredLoss):
                          note="L <= ||A||_2^2/n + lam (svds, padded); mu >= lam" if lam else
                          "L <= ||A||_2^2/n (svds, padded); mu not derived for sparse data")
 
-    def hessp(self, x: np.ndarray, v: np.ndarray) -> np.ndarray:
-        v = np.asarray(v, dtype=np.float64)
-        return self.A64.T @ (self.A64 @ v) / self.n_samples + self.lam * v
-
-    def hessian_operator(self, x: np.ndarray) -> Any:
-        return lambda v: self.hessp(x, v)
-
-    def cvxpy_objective(self, x: Any) -> Any:
-        import cvxpy as cp
-
-        f = cp.sum_squares(self.A64 @ x - self.b64) / (2 * self.n_samples)
-        return f + 0.5 * self.lam * cp.sum_squares(x) if self.lam else f
-
-    def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray] | None:
-        if not self.lam:
-            return None
-        from benchsuite.families.sparse import ridge_dual
-
-        return ridge_dual(self.A64, self.b64, self.lam, np.asarray(x, dtype=np.float64))
-
     def describe(self) -> dict[str, Any]:
         return {**self._data_params, "lam": self.lam}
 

@@ -117,6 +117,34 @@ class SquaredLoss(LinearModel):
             out += np.multiply(x, self.lam, out=self._t)
         return out
 
+    def hessp(self, x: np.ndarray, v: np.ndarray) -> np.ndarray:
+        v = np.asarray(v, dtype=np.float64)
+        return self.A64.T @ (self.A64 @ v) / self.n_samples + self.lam * v
+
+    def hessian_operator(self, x: np.ndarray) -> Any:
+        """``v -> H v`` (the Hessian ``A^T A / n + lam I`` is constant)."""
+        return lambda v: self.hessp(x, v)
+
+    def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray] | None:
+        """``(P(x), D(alpha), w(alpha))`` of the ridge dual at ``alpha = b - A x``; None when ``lam = 0``.
+
+        See :func:`benchsuite.families.sparse.ridge_dual` (without regularisation
+        the dual needs ``A^T alpha = 0`` and has no point matched to ``x``).
+        """
+        if not self.lam:
+            return None
+        from benchsuite.families.sparse import ridge_dual
+
+        return ridge_dual(self.A64, self.b64, self.lam, np.asarray(x, dtype=np.float64))
+
+    def cvxpy_objective(self, x: Any) -> Any:
+        import cvxpy as cp
+
+        f = cp.sum_squares(self.A64 @ x - self.b64) / (2 * self.n_samples)
+        if self.lam:
+            f = f + 0.5 * self.lam * cp.sum_squares(x)
+        return f
+
 
 class _LinearRegression(SquaredLoss):
     """Shared oracle of ``1/(2n) ||A x - b||^2 + lam/2 ||x||^2`` (see module docstring)."""
@@ -147,35 +175,6 @@ class _LinearRegression(SquaredLoss):
             mu_kind="exact",
             note=self._constants_note,
         )
-
-    def hessp(self, x: np.ndarray, v: np.ndarray) -> np.ndarray:
-        v = np.asarray(v, dtype=np.float64)
-        return self.A64.T @ (self.A64 @ v) / self.n_samples + self.lam * v
-
-    def hessian_operator(self, x: np.ndarray) -> Any:
-        """``v -> H v`` (the Hessian ``A^T A / n + lam I`` is constant)."""
-        return lambda v: self.hessp(x, v)
-
-    def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray] | None:
-        """``(P(x), D(alpha), w(alpha))`` of the ridge dual at ``alpha = b - A x``; None when ``lam = 0``.
-
-        See :func:`benchsuite.families.sparse.ridge_dual` (without regularisation
-        the dual needs ``A^T alpha = 0`` and has no point matched to ``x``).
-        """
-        if not self.lam:
-            return None
-        from benchsuite.families.sparse import ridge_dual
-
-        return ridge_dual(self.A64, self.b64, self.lam, np.asarray(x, dtype=np.float64))
-
-    def cvxpy_objective(self, x: Any) -> Any:
-        import cvxpy as cp
-
-        f = cp.sum_squares(self.A64 @ x - self.b64) / (2 * self.n_samples)
-        if self.lam:
-            f = f + 0.5 * self.lam * cp.sum_squares(x)
-        return f
-
 
 class LeastSquares(_LinearRegression):
     """Least squares ``1/(2n) ||A x - b||^2`` with ``cond(A^T A) = kappa`` exactly.

@@ -267,23 +267,6 @@ class SparseRidge(SquaredLoss):
             note="L <= ||A||_2^2/n + lam (||A||_2 by svds, padded; <= 1 + lam for unit rows); mu >= lam",
         )
 
-    def hessp(self, x: np.ndarray, v: np.ndarray) -> np.ndarray:
-        v = np.asarray(v, dtype=np.float64)
-        return self.A64.T @ (self.A64 @ v) / self.n_samples + self.lam * v
-
-    def hessian_operator(self, x: np.ndarray) -> Any:
-        """``v -> H v`` (the Hessian is constant)."""
-        return lambda v: self.hessp(x, v)
-
-    def cvxpy_objective(self, x: Any) -> Any:
-        import cvxpy as cp
-
-        return cp.sum_squares(self.A64 @ x - self.b64) / (2 * self.n_samples) + 0.5 * self.lam * cp.sum_squares(x)
-
-    def duality_gap(self, x: np.ndarray) -> tuple[float, float, np.ndarray]:
-        """``(P(x), D(alpha), w(alpha))`` at the dual point ``alpha = b - A x`` (see :func:`ridge_dual`)."""
-        return ridge_dual(self.A64, self.b64, self.lam, np.asarray(x, dtype=np.float64))
-
     def describe(self) -> dict[str, Any]:
         return {"lam": self.lam, "row_nnz": self.row_nnz, "zipf": self.zipf, "noise": self.noise,
                 "signal": self.signal, "nnz": int(self.A.nnz), "nnz_density": self.A.nnz / (self.n_samples * self.dim)}
