@@ -13,7 +13,7 @@ printing are not counted:
   on fresh workers (each builds its problems), then again on the same workers
   (problems cached per worker process).
 
-Each measurement is repeated ``--rounds`` times in alternating order and the
+Each measurement is repeated ``--times`` times in alternating order and the
 median kept. Besides wall time, the CPU seconds of every process involved
 (this one, the local workers, or the Dask workers and scheduler) are summed:
 CPU time is not inflated by other programs on a busy machine, so its ratios
@@ -22,7 +22,7 @@ benchmark that disagrees with itself is void). The load average of the machine
 is printed before and after: on a shared machine the figures are inflated and
 the ratios noisy.
 
-Run: ``.venv/bin/python benchmarks/bench_cluster.py [--rounds 3]`` (needs the
+Run: ``.venv/bin/python benchmarks/bench_cluster.py [--times 3]`` (needs the
 ``cluster`` extra).
 """
 
@@ -69,7 +69,7 @@ def _cpu_now(client=None) -> float:
 
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--rounds", type=int, default=3, help="repeats of each measurement (median kept)")
+    p.add_argument("--times", type=int, default=3, help="repeats of each measurement (median kept)")
     args = p.parse_args()
     from distributed import Client, LocalCluster
 
@@ -93,7 +93,7 @@ def main() -> None:
         elif counts != reference:
             raise SystemExit(f"{label}: iteration counts differ from the first run -- benchmark void")
 
-    for r in range(args.rounds):
+    for r in range(args.times):
         order = ["jobs1", "jobs2", "cluster"] if r % 2 == 0 else ["cluster", "jobs2", "jobs1"]
         for what in order:
             if what == "cluster":

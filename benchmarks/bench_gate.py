@@ -23,11 +23,11 @@ reference cache (so no certified optimum is computed):
    clamped v, eps under the root in Adam and AdaGrad). Printed: false alarms
    and bugs caught, per mode.
 
-Each measurement is repeated ``--repeats`` times (default 3) and the median
+Each measurement is repeated ``--times`` times (default 3) and the median
 is shown with the min-max range; the load average is printed before and after,
 because on a shared machine wall-clock figures are inflated by other work.
 
-Run: ``.venv/bin/python benchmarks/bench_gate.py [--rule adam] [--jobs 2] [--repeats 3] [--planted]``.
+Run: ``.venv/bin/python benchmarks/bench_gate.py [--rule adam] [--jobs 2] [--times 3] [--planted]``.
 """
 
 from __future__ import annotations
@@ -129,7 +129,7 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rule", default="adam")
     ap.add_argument("--jobs", type=int, default=2)
-    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--times", type=int, default=3)
     ap.add_argument("--planted", action="store_true", help="verdicts on clean rewrites and planted bugs (part 3)")
     args = ap.parse_args()
 
@@ -149,7 +149,7 @@ def main() -> None:
     from benchsuite.sysinfo import machine_info
 
     print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}; cores {os.cpu_count()}; "
-          f"jobs {args.jobs}; rule {args.rule}; repeats {args.repeats}")
+          f"jobs {args.jobs}; rule {args.rule}; repeats {args.times}")
     spec = parse_rule(args.rule)
     instances = select(load_catalogue(), None, "small", validate=True)
     cases = [Case(instance=i, rule=spec) for i in instances]
@@ -158,19 +158,19 @@ def main() -> None:
     def passes(envelope: bool):
         return lambda: run_cases(cases, jobs=args.jobs, timing=False, progress=False, envelope=envelope)
 
-    bare_w, bare_c, _ = _timed(passes(False), args.repeats)
-    env_w, env_c, results = _timed(passes(True), args.repeats)
+    bare_w, bare_c, _ = _timed(passes(False), args.times)
+    env_w, env_c, results = _timed(passes(True), args.times)
     path = write_baseline(make_baseline(results, rule_label=spec.label, machine=machine_info()),
                           work / "baseline.json", force=True)
     from benchsuite.baseline import load_baseline
 
     base = load_baseline(path)
-    gate_w, gate_c, report = _timed(lambda: run_gate(base, args.rule, jobs=args.jobs), args.repeats)
+    gate_w, gate_c, report = _timed(lambda: run_gate(base, args.rule, jobs=args.jobs), args.times)
     exact_w, exact_c, exact = _timed(lambda: run_gate(base, args.rule, config=GateConfig(exact=True), jobs=args.jobs),
-                                     args.repeats)
+                                     args.times)
     cli = [sys.executable, "-m", "benchsuite", "gate", "--rule", args.rule, "--baseline", str(path),
            "--jobs", str(args.jobs)]
-    cli_w, cli_c, proc = _timed(lambda: subprocess.run(cli, capture_output=True, text=True, check=False), args.repeats)
+    cli_w, cli_c, proc = _timed(lambda: subprocess.run(cli, capture_output=True, text=True, check=False), args.times)
 
     med = statistics.median
     print()

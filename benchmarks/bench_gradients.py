@@ -27,7 +27,7 @@ alone: at d = 1e7 a fresh 80 MB result costs page faults), and -- for
 information -- ``A.T @ r`` through scipy's CSC view of ``A`` (no second copy,
 but a scattered write). Each timing is the mean of at least 3 calls.
 
-Usage: ``python benchmarks/bench_gradients.py [--sizes 5000x500,20000x1000] [--repeats 21] [--large 1e6,1e7]``.
+Usage: ``python benchmarks/bench_gradients.py [--sizes 5000x500,20000x1000] [--times 21] [--large 1e6,1e7]``.
 """
 
 from __future__ import annotations
@@ -121,14 +121,14 @@ def bench_large(label: str, problem, repeats: int) -> tuple[float, float]:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", default="5000x500,20000x1000", help="comma-separated NxD sizes")
-    ap.add_argument("--repeats", type=int, default=21)
+    ap.add_argument("--times", type=int, default=21)
     ap.add_argument("--large", default="", help="comma-separated large sparse logistic sizes: 1e6, 1e7")
     args = ap.parse_args()
     if args.large:
         print("BLAS threads pinned to 1; best CPU times; ratio = family / (A @ x, A^T @ r with the stored CSR A^T)")
         with threadpool_limits(limits=1):
             for key in args.large.split(","):
-                bench_large(f"d={key}", SparseLogistic(**LARGE[key.strip()]), max(5, args.repeats // 3))
+                bench_large(f"d={key}", SparseLogistic(**LARGE[key.strip()]), max(5, args.times // 3))
         return
     print("BLAS threads pinned to 1; best CPU times in ms; ratio = family / (A @ x, A.T @ r): of best times, median")
     print(f"{'family':<10} {'size':>12} {'bare ms':>9} {'grad ms':>9} {'best':>7} {'median':>7}"
@@ -136,12 +136,12 @@ def main() -> None:
     with threadpool_limits(limits=1):
         for size in args.sizes.split(","):
             n, d = (int(v) for v in size.lower().split("x"))
-            bench("lsq", LeastSquares(n=n, d=d, kappa=1e3, seed=1), args.repeats)
-            bench("ridge", Ridge(n=n, d=d, lam=1e-2, seed=1), args.repeats)
-            bench("logistic", Logistic(n=n, d=d, lam=1e-3, seed=1), args.repeats)
-            bench("huber", Huber(n=n, d=d, lam=1e-3, seed=1), args.repeats)
+            bench("lsq", LeastSquares(n=n, d=d, kappa=1e3, seed=1), args.times)
+            bench("ridge", Ridge(n=n, d=d, lam=1e-2, seed=1), args.times)
+            bench("logistic", Logistic(n=n, d=d, lam=1e-3, seed=1), args.times)
+            bench("huber", Huber(n=n, d=d, lam=1e-3, seed=1), args.times)
         # sparse CSR features at 1 % density; the family keeps A^T as CSR for the second product
-        bench("logit-csr", Logistic(n=20000, d=5000, lam=1e-3, sparse=True, density=0.01, seed=1), args.repeats)
+        bench("logit-csr", Logistic(n=20000, d=5000, lam=1e-3, sparse=True, density=0.01, seed=1), args.times)
 
 
 if __name__ == "__main__":
