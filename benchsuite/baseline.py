@@ -74,6 +74,7 @@ class SeedRecord:
     checkpoints: tuple[int, ...] = ()  # dense then geometric (version 1: 1, 2, 4, 8, ...)
     envelope: tuple[float, ...] = ()  # relative round-off sensitivity per checkpoint (empty: not recorded)
     held: tuple[int | None, ...] = ()  # per target: held from this iteration to the end of the pass
+    margins: tuple[float | None, ...] = ()  # per target: relative distance of the measure from it at the held crossing
     horizon: int = 0  # steps run after the tightest target was first reached
     left_at: int | None = None  # first horizon iteration above the tightest target
     horizon_worst: float | None = None  # largest measure over the horizon (None: no horizon ran)
@@ -165,6 +166,7 @@ def record_from_result(result: Any) -> CaseRecord:
             checkpoints=tuple(int(k) for k in o.checkpoints),
             envelope=tuple(float(v) for v in o.envelope),
             held=tuple(_opt_int(i) for i in o.held),
+            margins=tuple(None if v is None else float(v) for v in o.margins),
             horizon=int(o.horizon),
             left_at=_opt_int(o.left_at),
             horizon_worst=None if o.horizon_worst is None else float(o.horizon_worst),
@@ -257,6 +259,7 @@ def _seed_json(s: SeedRecord) -> dict[str, Any]:
         "checkpoints": list(s.checkpoints),
         "envelope": [_enc_float(v) for v in s.envelope],
         "held": list(s.held),
+        "margins": [None if v is None else _enc_float(v) for v in s.margins],
         "horizon": s.horizon,
         "left_at": s.left_at,
         "horizon_worst": None if s.horizon_worst is None else _enc_float(s.horizon_worst),
@@ -415,6 +418,8 @@ def _parse_seed(r: _Reader, obj: Any, where: str, n_targets: int) -> SeedRecord:
             r.float_(v, f"{where}.envelope[{i}]") for i, v in enumerate(r.list_(obj.get("envelope", []), f"{where}.envelope"))
         ),
         held=tuple(r.opt_int(v, f"{where}.held[{i}]") for i, v in enumerate(r.list_(obj.get("held", []), f"{where}.held"))),
+        margins=tuple(None if v is None else r.float_(v, f"{where}.margins[{i}]")
+                      for i, v in enumerate(r.list_(obj.get("margins", []), f"{where}.margins"))),
         horizon=r.int_(obj.get("horizon", 0), f"{where}.horizon", minimum=0),
         left_at=r.opt_int(obj.get("left_at"), f"{where}.left_at"),
         horizon_worst=None if obj.get("horizon_worst") is None else r.float_(obj["horizon_worst"], f"{where}.horizon_worst"),

@@ -171,6 +171,8 @@ class SeedOutcome:
     checkpoints: tuple[int, ...] = ()
     envelope: tuple[float, ...] = ()
     held: tuple[int | None, ...] = ()
+    #: per target: min(m_{h-1} - t, t - m_h) / t at the held crossing h (None: not held)
+    margins: tuple[float | None, ...] = ()
     horizon: int = 0
     left_at: int | None = None
     horizon_worst: float | None = None
@@ -302,6 +304,7 @@ def result_from_dict(case: Case, d: Mapping[str, Any], traces: Mapping[int, Trac
             checkpoints=tuple(int(k) for k in o.get("checkpoints") or ()),
             envelope=tuple(float(dec_float(v)) for v in o.get("envelope") or ()),
             held=_opt_tuple(o.get("held")),
+            margins=tuple(None if v is None else float(dec_float(v)) for v in o.get("margins") or ()),
             horizon=int(o.get("horizon") or 0),
             left_at=o.get("left_at"),
             horizon_worst=None if o.get("horizon_worst") is None else float(dec_float(o["horizon_worst"])),

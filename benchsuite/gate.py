@@ -30,20 +30,24 @@ bit-identical to its baseline, exactly like a deterministic case. A case
 6. with ``exact``: the fingerprint departs from the baseline's (below).
 
 **The default allowance** (deterministic full-gradient cases and each seed
-of a stochastic case): ``slack_iters`` (1) iteration, and
-``max(slack_iters, ceil(slack_rel * baseline))`` (1 %) only where the
+of a stochastic case): **none** where the held crossing is *robust to
+round-off* -- the measure lies farther from the target on both sides of the
+crossing (``SeedRecord.margins``, relative to the target) than ``K x`` the
+round-off envelope there, so no perturbation of the size another summation
+order, BLAS or CPU makes can move it by a step: the count must match exactly;
+``slack_iters`` (1) iteration where the crossing is within that reach of the
+target; and ``max(slack_iters, ceil(slack_rel * baseline))`` (1 %) where the
 baseline's trajectory is *round-off-dominated* at the crossing. On one
 machine a pass is deterministic and counts are exact, so one step in a hundred
-skipped (+1 %) fails. The one iteration covers a measure that crosses a target
-within round-off of it: a rewrite that only reorders floating-point operations,
-another BLAS or another CPU perturbs the trajectory by its round-off envelope,
-which moves a count by at most one step where the envelope is small; where it
-is large (round-off-dominated, below), the count may move further and the
-allowance is 1 %. What the default promises: on the machine that recorded
-the baseline, a clean rerun passes and any change that moves a held
-crossing by more than one iteration fails; on another machine (the gate says
-when the baseline's CPU, BLAS or numpy differ), the same holds where the
-trajectory is not round-off-dominated; where it is, changes above 1 % fail.
+skipped (+1 %) fails, and so does a change that moves a robust crossing by one
+step (moments stored in float32, say). What the default promises: on the
+machine that recorded the baseline, a clean rerun passes and any change that
+moves a robust held crossing at all, or any held crossing by more than one
+iteration, fails; on another machine (the gate says when the baseline's CPU,
+BLAS or numpy differ) the same holds, since a robust crossing is by definition
+out of round-off's reach; where the trajectory is round-off-dominated, changes
+above 1 % fail. An explicit ``--slack-iters N`` replaces the robust exact count
+by N iterations everywhere.
 Schema-1 baselines carry no envelope: every crossing gets the one-iteration
 allowance and the gate says so (on another machine re-record the baseline).
 
@@ -157,7 +161,8 @@ class GateConfig:
     kept for users who want a deliberately loose gate.
     """
 
-    slack_iters: int = 1
+    #: None (default): 0 iterations at crossings robust to round-off, 1 elsewhere; a number: that, everywhere
+    slack_iters: int | None = None
     slack_rel: float = 0.01
     noise_factor: float = 0.0
     exact: bool = False
@@ -167,7 +172,7 @@ class GateConfig:
     sign_alpha: float = 0.05
 
     def __post_init__(self) -> None:
-        if self.slack_iters < 0:
+        if self.slack_iters is not None and self.slack_iters < 0:
             raise UserError(f"--slack-iters: must be >= 0, got {self.slack_iters}")
         if not (self.slack_rel >= 0 and math.isfinite(self.slack_rel)):
             raise UserError(f"--slack-rel: must be a finite number >= 0, got {self.slack_rel}")
@@ -178,15 +183,24 @@ class GateConfig:
         if not (0 < self.sign_alpha < 1):
             raise UserError(f"--sign-alpha: must be between 0 and 1, got {self.sign_alpha}")
 
-    def deterministic_allowance(self, baseline_iters: float, dominated: bool = False) -> int:
-        """``slack_iters``; ``max(slack_iters, ceil(slack_rel * baseline_iters))`` where round-off-dominated."""
-        if not dominated:
-            return self.slack_iters
-        return max(self.slack_iters, math.ceil(self.slack_rel * baseline_iters))
+    @property
+    def slack(self) -> int:
+        """The iterations a crossing may move where round-off can reach it (1 unless set)."""
+        return 1 if self.slack_iters is None else self.slack_iters
+
+    def deterministic_allowance(self, baseline_iters: float, dominated: bool = False, robust: bool = False) -> int:
+        """0 at a crossing robust to round-off (unless ``slack_iters`` is set), else ``slack``;
+        ``max(slack, ceil(slack_rel * baseline_iters))`` where round-off-dominated."""
+        if dominated:
+            return max(self.slack, math.ceil(self.slack_rel * baseline_iters))
+        if robust and self.slack_iters is None:
+            return 0
+        return self.slack
 
     def describe(self) -> str:
-        text = (f"allowance {self.slack_iters} iteration(s) per seed; max({self.slack_iters}, {100 * self.slack_rel:g} %) "
-                "where round-off-dominated; not compared where round-off decides the crossing")
+        exact = "0 iterations where the crossing is out of round-off's reach, " if self.slack_iters is None else ""
+        text = (f"allowance {exact}{self.slack} iteration(s) per seed elsewhere; max({self.slack}, "
+                f"{100 * self.slack_rel:g} %) where round-off-dominated; not compared where round-off decides the crossing")
         text += f"; stochastic: seeds in pairs + sign test at {self.sign_alpha:g}"
         if self.noise_factor:
             text += f", also {self.noise_factor:g} x seed range of the baseline"
@@ -346,6 +360,17 @@ def _chaotic(rec: SeedRecord, k: int, cfg: GateConfig) -> bool:
     return e is not None and not cfg.envelope_k * e < 1.0
 
 
+def _robust(rec: SeedRecord, j: int, k: int, cfg: GateConfig) -> bool:
+    """Whether target ``j``'s held crossing at ``k`` is out of round-off's reach: the measure's distance
+    from the target on both sides (``margins``, relative to the target) exceeds ``K x`` the envelope there."""
+    if j >= len(rec.margins) or rec.margins[j] is None or j >= len(rec.held) or rec.held[j] != k:
+        return False
+    env = envelope_at(rec, k)
+    # the exact mode's floor too (1e-9, or K ulps of a lower precision): where the envelope shows 0 a
+    # rewrite still rounds differently
+    return env is not None and rec.margins[j] > max(cfg.envelope_k * env, cfg.exact_rtol)
+
+
 def _pct(c: float, b: float) -> str:
     return f"{100.0 * (c - b) / max(b, 1.0):+.1f} %"
 
@@ -388,9 +413,9 @@ def _check_target(
             # K x envelope >= 1 there: round-off alone can move this crossing anywhere, or past the budget
             chaotic.append((bo.seed, int(b)))
             dominated = True
-            if c - b > cfg.slack_iters:  # still counted by the sign test: a shift of every seed is no accident
+            if c - b > cfg.slack:  # still counted by the sign test: a shift of every seed is no accident
                 later.append(co.seed)
-            elif b - c > cfg.slack_iters:
+            elif b - c > cfg.slack:
                 earlier.append(co.seed)
             continue
         if math.isinf(b):
@@ -402,7 +427,8 @@ def _check_target(
             continue
         dom = _dominated(bo, int(b))
         dominated |= dom
-        allow = max(float(cfg.deterministic_allowance(b, dom)), spread)
+        robust = held and not dom and _robust(bo, j, int(b), cfg)
+        allow = max(float(cfg.deterministic_allowance(b, dom, robust)), spread)
         allow_max = max(allow_max, allow)
         if math.isinf(c):
             lost.append((co.seed, b, co.iters[j]))
@@ -412,9 +438,9 @@ def _check_target(
             slower.append((co.seed, b, c, allow))
         elif b - c > allow:
             faster.append(co.seed)
-        if c - b > cfg.slack_iters:
+        if c - b > cfg.slack:
             later.append(co.seed)
-        elif b - c > cfg.slack_iters:
+        elif b - c > cfg.slack:
             earlier.append(co.seed)
     b_med = _median(b_judged)
     c_med = _median(c_judged)
@@ -604,7 +630,9 @@ def judge_case(
             reasons.append(reason)
         if note:
             notes.append(note)
-    checks = tuple(_check_target(j, base, cand, cfg, reasons, notes, not schema1) for j in range(len(base.targets)))
+    ulp = float(np.finfo(np.dtype(dtype)).eps) if dtype else 0.0
+    ecfg = replace(cfg, exact_rtol=max(cfg.exact_rtol, cfg.envelope_k * ulp))  # the floor in this precision
+    checks = tuple(_check_target(j, base, cand, ecfg, reasons, notes, not schema1) for j in range(len(base.targets)))
     # final point vs the certified optimum, on every seed whose baseline ended within x_tol
     for bo, co in zip(base.outcomes, cand.outcomes):
         if bo.final_dist <= base.x_tol and not co.final_dist <= base.x_tol and co.status not in _BAD_STATUS:
@@ -613,8 +641,6 @@ def judge_case(
                 f"{co.final_dist:.3g} > x_tol {base.x_tol:g} (baseline {bo.final_dist:.3g})"
             )
     if cfg.exact:
-        ulp = float(np.finfo(np.dtype(dtype)).eps) if dtype else 0.0
-        ecfg = replace(cfg, exact_rtol=max(cfg.exact_rtol, cfg.envelope_k * ulp))
         for bo, co in zip(base.outcomes, cand.outcomes):
             diff = _fingerprint_diff(bo, co, ecfg)
             if diff:

@@ -252,12 +252,18 @@ def monitored_pass(
             td.append(math.nan)
     tight = targets.index(min(targets)) if nt else -1
     held: list[int | None] = []
+    margins: list[float | None] = []
     for t in targets:
         if status in ("error", "diverged") or not seen[-1] <= t:
             held.append(None)
+            margins.append(None)
         else:
             above = np.flatnonzero(~(seen <= t))
-            held.append(int(above[-1]) + 1 if above.size else 0)
+            h = int(above[-1]) + 1 if above.size else 0
+            held.append(h)
+            # how far the measure is from the target on either side of the held crossing, relative
+            # to the target: a perturbation smaller than this cannot move the crossing
+            margins.append(float(min(seen[h - 1] - t, t - seen[h]) / t) if h >= 1 and t > 0 else None)
     left_at: int | None = None
     worst: float | None = None
     span = 0
@@ -294,6 +300,7 @@ def monitored_pass(
         error=error,
         checkpoints=tuple(cps),
         held=tuple(held),
+        margins=tuple(margins),
         horizon=span,
         left_at=left_at,
         horizon_worst=worst,
@@ -437,7 +444,8 @@ def _expand(outcome: SeedOutcome, keep: Sequence[bool]) -> SeedOutcome:
         return tuple(next(it) if k else None for k in keep)
 
     return replace(outcome, iters=spread(outcome.iters), grad_calls=spread(outcome.grad_calls),
-                   epochs=spread(outcome.epochs), held=spread(outcome.held) if outcome.held else ())
+                   epochs=spread(outcome.epochs), held=spread(outcome.held) if outcome.held else (),
+                   margins=spread(outcome.margins) if outcome.margins else ())
 
 
 def failed_outcome(case: Case, seed: int, status: str, message: str, iterations: int = 0) -> SeedOutcome:

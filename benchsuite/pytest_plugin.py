@@ -139,7 +139,7 @@ def assert_meets_baseline(
     baseline: str | Path,
     params: Mapping[str, Any] | None = None,
     *,
-    slack_iters: int = 1,
+    slack_iters: int | None = None,
     slack_rel: float = 0.01,
     noise_factor: float = 0.0,
     exact: bool = False,

@@ -238,7 +238,7 @@ def gate_json(report: GateReport) -> str:
         "baseline_rule": report.baseline_rule,
         "candidate_rule": report.candidate_rule,
         "config": {
-            "slack_iters": report.config.slack_iters,
+            "slack_iters": report.config.slack_iters,  # null: 0 where out of round-off's reach, 1 elsewhere
             "slack_rel": report.config.slack_rel,
             "noise_factor": report.config.noise_factor,
             "exact": report.config.exact,

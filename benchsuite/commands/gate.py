@@ -13,7 +13,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="override a recorded hyperparameter (repeatable)")
     p.add_argument("--baseline", required=True, help="baseline file recorded by `benchsuite baseline`")
     p.add_argument("--catalogue", action="append", default=[], metavar="PATH", help="extra catalogue file or folder")
-    p.add_argument("--slack-iters", type=int, default=1, help="allowed extra iterations (default 1)")
+    p.add_argument("--slack-iters", type=int, default=None, metavar="N",
+                   help="allowed extra iterations per crossing (default: 0 where the crossing is out of round-off's "
+                        "reach, 1 elsewhere; N replaces both)")
     p.add_argument("--slack-rel", type=float, default=0.01, help="allowed relative extra iterations (default 0.01)")
     p.add_argument("--noise-factor", type=float, default=0.0,
                    help="stochastic cases: loosen each seed's allowance by c x (max - min) of the baseline seeds "
