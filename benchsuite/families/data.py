@@ -166,6 +166,17 @@ class _DataMixin:
     def data_digest(cls, params: dict[str, Any]) -> str | None:
         return _digest(params)
 
+    def _read(self, file: str | None, dataset: str | None, format: str, label: str, n_features: int | None,
+              scale: str, intercept: bool, lam: float, dtype: str, kind: str) -> tuple[Any, np.ndarray, float]:
+        """Check dtype and lam, read the design and its labels of ``kind`` (see :func:`labels_for`)."""
+        as_dtype(dtype)
+        lam = _check_lam(lam)
+        X, ds = load_design(file, dataset, format, label, n_features, scale, intercept)
+        y = labels_for(ds, kind)
+        self.seed = 0
+        self._describe_data(ds, X, scale=scale, intercept=bool(intercept))
+        return X, y, lam
+
     def _describe_data(self, ds: DataSet, X: Any, **extra: Any) -> None:
         self.data_source = ds.source
         self._data_params = {"source": ds.source, "rows": int(X.shape[0]), "features": int(X.shape[1]), **extra}
@@ -186,12 +197,7 @@ class LogisticData(_DataMixin, Logistic):
         n_features: int | None = None, scale: str = "none", intercept: bool = False, lam: float = 1e-3,
         dtype: str = "float64",
     ) -> None:
-        as_dtype(dtype)
-        lam = _check_lam(lam)
-        X, ds = load_design(file, dataset, format, label, n_features, scale, intercept)
-        y = labels_for(ds, "binary")
-        self.seed = 0
-        self._describe_data(ds, X, scale=scale, intercept=bool(intercept))
+        X, y, lam = self._read(file, dataset, format, label, n_features, scale, intercept, lam, dtype, "binary")
         self._setup(X, y, lam, dtype, {"sparse": bool(self._is_sparse(X))})
 
     @staticmethod
@@ -219,13 +225,8 @@ class SoftmaxData(_DataMixin, Softmax):
         n_features: int | None = None, scale: str = "none", intercept: bool = False, lam: float = 1e-3,
         dtype: str = "float64",
     ) -> None:
-        as_dtype(dtype)
-        lam = _check_lam(lam)
-        X, ds = load_design(file, dataset, format, label, n_features, scale, intercept)
-        labels = labels_for(ds, "classes")
-        self.seed = 0
+        X, labels, lam = self._read(file, dataset, format, label, n_features, scale, intercept, lam, dtype, "classes")
         self.scale_range, self.signal = 1.0, float("nan")
-        self._describe_data(ds, X, scale=scale, intercept=bool(intercept))
         self._setup(X, labels, int(labels.max()) + 1, lam, dtype)
 
     def describe(self) -> dict[str, Any]:
