@@ -121,7 +121,8 @@ class Trace:
     """One seed's convergence trace: a subsample of the pass with its exact crossings.
 
     Points: every iteration up to :data:`benchsuite.monitor.TRACE_DENSE`, then a
-    geometric grid (ratio :data:`benchsuite.monitor.TRACE_RATIO`), plus each
+    geometric grid (ratio :data:`benchsuite.monitor.TRACE_RATIO`; a sparser grid
+    above 1e4 unknowns, :data:`benchsuite.monitor.TRACE_LARGE`), plus each
     target's first crossing and the final iterate. ``dist`` is the relative
     distance to x* (nan where no optimum is known); ``seconds`` the wall-clock
     position from the timing replay (nan where not replayed).

@@ -28,8 +28,10 @@ What a pass records:
   geometric grid of ratio 1.25, and at the final iterate (what ``--exact``
   compares);
 * the **trace**: the measure and the relative distance to x* at every
-  iteration up to 200, then on a geometric grid of ratio 1.02, plus every
-  first crossing and the final iterate (what the report draws).
+  iteration up to 200, then on a geometric grid of ratio 1.02 (above 1e4
+  unknowns, where each point's distance costs a pass over x: to 16, then
+  ratio 1.1), plus every first crossing and the final iterate (what the
+  report draws).
 
 **Round-off envelope** (``envelope=True``, recorded with baselines): two
 shadow passes run the same number of steps, each evaluating the gradient at
@@ -82,8 +84,10 @@ __all__ = [
 
 #: fingerprint: every iteration up to this, then a geometric grid of this ratio
 FP_DENSE, FP_RATIO = 16, 1.25
-#: trace: every iteration up to this, then a geometric grid of this ratio
-TRACE_DENSE, TRACE_RATIO = 200, 1.02
+#: trace: every iteration up to this, then a geometric grid of this ratio; above TRACE_DENSE_DIM
+#: unknowns (a trace point costs one distance, O(d)) every iteration to 16, then a ratio of 1.1
+TRACE_DENSE, TRACE_RATIO, TRACE_DENSE_DIM = 200, 1.02, 10_000
+TRACE_LARGE = (16, 1.1)
 #: shadow passes behind the round-off envelope
 SHADOWS = 2
 #: distinct sign patterns a shadow cycles through (drawn once per shadow)
@@ -178,6 +182,7 @@ def monitored_pass(
     loosest = max(targets, default=-math.inf) if steps is None else -math.inf
     reached_at: int | None = None
     next_tp = 1
+    dense, ratio = (TRACE_DENSE, TRACE_RATIO) if x.size <= TRACE_DENSE_DIM else TRACE_LARGE
     value = problem.value
     value_and_grad = problem.value_and_grad
     xg = x
@@ -219,7 +224,7 @@ def monitored_pass(
                     tm.append(float(m))
                     td.append(meas.distance(x) / dist0 if dist0 > 0 else math.nan)
                     if k == next_tp:
-                        next_tp = _next_point(k, TRACE_DENSE, TRACE_RATIO)
+                        next_tp = _next_point(k, dense, ratio)
                 if crossed:  # some unmet target is met now (one comparison otherwise)
                     for j in range(nt):
                         if iters[j] is None and m <= targets[j]:

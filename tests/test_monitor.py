@@ -142,3 +142,15 @@ def test_envelope_of_a_shadow_that_stopped_early_is_infinite_there() -> None:
     short = _pass(q, faulty_rules.PlainGD(lr=1.0), shadow=1, steps=10)
     env = envelope_of(main, [short])
     assert all(math.isfinite(v) for v in env[:10]) and all(math.isinf(v) for v in env[10:])
+
+
+def test_a_trace_is_sparser_on_large_problems() -> None:
+    # each trace point costs one distance (O(d)): above 1e4 unknowns every iteration to 16, then ratio 1.1
+    q = Quadratic(d=100_000, L=1.0, mu=1e-3, seed=1)
+    out = _pass(q, faulty_rules.PlainGD(lr=1.0), targets=(1e-12,), budget=400)
+    it = out.trace.iteration.tolist()
+    grid = [0, *range(1, 17)]
+    while grid[-1] < 400:
+        grid.append(max(grid[-1] + 1, int(grid[-1] * 1.1)))
+    assert it == [k for k in grid if k < 400] + [400]  # nothing met: the grid and the final iterate
+    assert len(it) < 60
