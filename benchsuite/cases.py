@@ -44,6 +44,7 @@ __all__ = [
     "SeedOutcome",
     "Trace",
     "aggregate_status",
+    "horizon_steps",
     "result_from_dict",
     "result_to_dict",
 ]
@@ -91,11 +92,6 @@ class Case:
     @property
     def run_measure(self) -> str:
         return self.measure or self.instance.measure
-
-    def horizon_steps(self, reached_at: int) -> int:
-        """Steps run after the tightest target is first reached at iteration ``reached_at``."""
-        fixed, mult = self.horizon
-        return max(int(fixed), math.ceil(float(mult) * reached_at))
 
     def key(self) -> str:
         """Stable, human-readable id: instance, rule label, oracle, and any overrides."""
@@ -226,6 +222,12 @@ class CaseResult:
             b is not None and any(o.iters[j] is not None and o.iters[j] < b for o in self.outcomes)
             for j, b in enumerate(self.theory_lower)
         )
+
+
+def horizon_steps(horizon: tuple[int, float], reached_at: int) -> int:
+    """``max(steps, ceil(multiple x reached_at))`` for a horizon ``(steps, multiple)``."""
+    fixed, mult = horizon
+    return max(int(fixed), math.ceil(float(mult) * reached_at))
 
 
 def aggregate_status(statuses: Sequence[str]) -> str:

@@ -61,7 +61,7 @@ from typing import Any
 
 import numpy as np
 
-from benchsuite.cases import DIVERGED_ABOVE, Case, SeedOutcome, Trace
+from benchsuite.cases import DIVERGED_ABOVE, Case, SeedOutcome, Trace, horizon_steps
 from benchsuite.errors import UserError
 from benchsuite.measures import make_measure
 from benchsuite.oracle import OracleSpec, gradient_function
@@ -169,9 +169,8 @@ def monitored_pass(
     perturb = _perturber(x, shadow) if shadow is not None else None
     if perturb is not None and full:
         f, g = problem.value_and_grad(perturb(x, 0))
-    fixed, mult = horizon
     stop_at = int(steps) if steps is not None else int(budget)
-    cap = stop_at if steps is not None else int(budget) + max(int(fixed), math.ceil(float(mult) * budget))
+    cap = stop_at if steps is not None else int(budget) + horizon_steps(horizon, budget)
     ms = np.empty(cap + 1)
     ms[0] = m = meas(f, x, g) if need != "x" or have_opt else 1.0
     tk: list[int] = [0]
@@ -235,7 +234,7 @@ def monitored_pass(
                             unmet -= 1
                     if not unmet:
                         reached_at = k
-                        stop_at = k + max(int(fixed), math.ceil(float(mult) * k))
+                        stop_at = k + horizon_steps(horizon, k)
                         loosest = -math.inf
                     else:
                         loosest = max(t for j, t in enumerate(targets) if iters[j] is None)
